@@ -1,0 +1,15 @@
+//! The robot model and the control laws of gripsweep. This crate knows nothing of the physics
+//! engine, files or the scenario matrix: it takes URDF text and state vectors and returns
+//! dynamics terms and torques.
+
+pub mod algorithms;
+pub mod configuration;
+pub mod model;
+pub mod robot_facts;
+pub mod spatial;
+#[cfg(test)]
+mod test_robots;
+
+pub use algorithms::Workspace;
+pub use model::{Model, ModelError, RootKind};
+pub use robot_facts::RobotFacts;

@@ -1,0 +1,262 @@
+//! Robot facts that URDF does not carry, read from a small TOML beside the URDF: which frames
+//! are sphere feet, actuator parameters (reflected rotor inertia, joint friction, current- and
+//! torque-loop figures) with per-joint overrides, and the nominal standing posture.
+//! Every field and its default is documented on the struct; `scenarios/robots/*.toml` show them.
+
+use crate::model::Model;
+use serde::Deserialize;
+use std::collections::BTreeMap;
+
+/// The whole robot-facts file.
+#[derive(Clone, Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RobotFacts {
+    /// Path of the URDF, relative to the TOML file.
+    pub urdf: String,
+    pub feet: Feet,
+    /// Defaults for every actuated joint.
+    #[serde(default)]
+    pub actuators: ActuatorTable,
+    /// Nominal standing joint angles, rad, by joint name (unlisted joints: 0).
+    #[serde(default)]
+    pub nominal: BTreeMap<String, f64>,
+    /// Let links of the robot collide with each other in the plant (default off).
+    #[serde(default)]
+    pub self_collision: bool,
+}
+
+#[derive(Clone, Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Feet {
+    /// Named frames at the centres of the sphere feet.
+    pub frames: Vec<String>,
+    /// Sphere radius, m.
+    pub radius: f64,
+}
+
+/// Actuator parameters of one joint. Defaults are invented demo values, stated in
+/// `scenarios/robots/brindle.toml`.
+#[derive(Clone, Copy, Debug, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct ActuatorParams {
+    /// Reflected rotor inertia (rotor inertia × gear ratio²), kg·m². Default 0.
+    pub armature: f64,
+    /// Joint Coulomb friction, N·m. Default 0.
+    pub coulomb: f64,
+    /// Joint viscous friction, N·m·s/rad. Default 0.
+    pub viscous: f64,
+    /// Relative error of the estimated torque constant (open-loop current drive). Default 0.
+    pub torque_constant_error: f64,
+    /// Transport delay of the command, s (open-loop current drive). Default 0.
+    pub delay: f64,
+    /// First-order lag time constant of the current loop, s. Default 0.
+    pub lag: f64,
+    /// Rate of the inner joint-torque loop, Hz (torque-feedback drive). Default 4000.
+    pub torque_loop_rate: f64,
+    /// Loop gain of the inner torque loop; residual friction = friction / (1 + gain). Default 10.
+    pub torque_loop_gain: f64,
+}
+
+impl Default for ActuatorParams {
+    fn default() -> Self {
+        ActuatorParams {
+            armature: 0.0,
+            coulomb: 0.0,
+            viscous: 0.0,
+            torque_constant_error: 0.0,
+            delay: 0.0,
+            lag: 0.0,
+            torque_loop_rate: 4000.0,
+            torque_loop_gain: 10.0,
+        }
+    }
+}
+
+/// Per-joint overrides: any subset of [`ActuatorParams`]' fields.
+#[derive(Clone, Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ActuatorOverride {
+    pub armature: Option<f64>,
+    pub coulomb: Option<f64>,
+    pub viscous: Option<f64>,
+    pub torque_constant_error: Option<f64>,
+    pub delay: Option<f64>,
+    pub lag: Option<f64>,
+    pub torque_loop_rate: Option<f64>,
+    pub torque_loop_gain: Option<f64>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ActuatorTable {
+    #[serde(flatten)]
+    pub defaults: ActuatorDefaults,
+    #[serde(default)]
+    pub joints: BTreeMap<String, ActuatorOverride>,
+}
+
+/// Same fields as [`ActuatorParams`]; a separate type because `flatten` and `deny_unknown_fields`
+/// do not combine in serde, so unknown names are caught by [`RobotFacts::validate`] instead.
+#[derive(Clone, Debug, Default, Deserialize)]
+pub struct ActuatorDefaults {
+    pub armature: Option<f64>,
+    pub coulomb: Option<f64>,
+    pub viscous: Option<f64>,
+    pub torque_constant_error: Option<f64>,
+    pub delay: Option<f64>,
+    pub lag: Option<f64>,
+    pub torque_loop_rate: Option<f64>,
+    pub torque_loop_gain: Option<f64>,
+    #[serde(flatten)]
+    pub unknown: BTreeMap<String, toml::Value>,
+}
+
+const ACTUATOR_FIELDS: &str = "armature, coulomb, viscous, torque_constant_error, delay, lag, torque_loop_rate, torque_loop_gain, joints";
+
+impl RobotFacts {
+    /// Parse TOML text. Errors name the field and what is allowed.
+    pub fn from_toml_str(text: &str) -> Result<RobotFacts, String> {
+        let facts: RobotFacts = toml::from_str(text).map_err(|e| e.to_string())?;
+        if let Some(name) = facts.actuators.defaults.unknown.keys().next() {
+            return Err(format!(
+                "unknown field `actuators.{name}`; allowed: {ACTUATOR_FIELDS}"
+            ));
+        }
+        Ok(facts)
+    }
+
+    /// The resolved parameters of one joint: defaults, then its override.
+    pub fn actuator(&self, joint: &str) -> ActuatorParams {
+        let d = &self.actuators.defaults;
+        let base = ActuatorParams::default();
+        let mut p = ActuatorParams {
+            armature: d.armature.unwrap_or(base.armature),
+            coulomb: d.coulomb.unwrap_or(base.coulomb),
+            viscous: d.viscous.unwrap_or(base.viscous),
+            torque_constant_error: d
+                .torque_constant_error
+                .unwrap_or(base.torque_constant_error),
+            delay: d.delay.unwrap_or(base.delay),
+            lag: d.lag.unwrap_or(base.lag),
+            torque_loop_rate: d.torque_loop_rate.unwrap_or(base.torque_loop_rate),
+            torque_loop_gain: d.torque_loop_gain.unwrap_or(base.torque_loop_gain),
+        };
+        if let Some(o) = self.actuators.joints.get(joint) {
+            p.armature = o.armature.unwrap_or(p.armature);
+            p.coulomb = o.coulomb.unwrap_or(p.coulomb);
+            p.viscous = o.viscous.unwrap_or(p.viscous);
+            p.torque_constant_error = o.torque_constant_error.unwrap_or(p.torque_constant_error);
+            p.delay = o.delay.unwrap_or(p.delay);
+            p.lag = o.lag.unwrap_or(p.lag);
+            p.torque_loop_rate = o.torque_loop_rate.unwrap_or(p.torque_loop_rate);
+            p.torque_loop_gain = o.torque_loop_gain.unwrap_or(p.torque_loop_gain);
+        }
+        p
+    }
+
+    /// Check the facts against the model: feet and joints named exist, values in range.
+    pub fn validate(&self, model: &Model) -> Result<(), String> {
+        if self.feet.frames.is_empty() {
+            return Err("field `feet.frames` is empty; name at least one foot frame".into());
+        }
+        for f in &self.feet.frames {
+            if model.frame_index(f).is_none() {
+                return Err(format!(
+                    "field `feet.frames`: foot '{f}' is not a link of the URDF; frames are: {}",
+                    model
+                        .frames
+                        .iter()
+                        .map(|f| f.name.as_str())
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ));
+            }
+        }
+        if !(self.feet.radius.is_finite() && self.feet.radius > 0.0) {
+            return Err(format!(
+                "field `feet.radius` = {}: allowed: a radius > 0 m",
+                self.feet.radius
+            ));
+        }
+        let joint_list = || model.joint_names().join(", ");
+        for name in self.actuators.joints.keys() {
+            if model.joint_index(name).is_none() {
+                return Err(format!(
+                    "table `actuators.joints.{name}`: no such moving joint; joints are: {}",
+                    joint_list()
+                ));
+            }
+        }
+        for (name, val) in &self.nominal {
+            let Some(k) = model.joint_index(name) else {
+                return Err(format!(
+                    "field `nominal.{name}`: no such moving joint; joints are: {}",
+                    joint_list()
+                ));
+            };
+            let j = &model.joints[k];
+            if !val.is_finite() || *val < j.lower || *val > j.upper {
+                return Err(format!(
+                    "field `nominal.{name}` = {val}: outside the joint's limits [{}, {}]",
+                    j.lower, j.upper
+                ));
+            }
+        }
+        for j in &model.joints {
+            let p = self.actuator(&j.name);
+            let checks = [
+                ("armature", p.armature, p.armature >= 0.0),
+                ("coulomb", p.coulomb, p.coulomb >= 0.0),
+                ("viscous", p.viscous, p.viscous >= 0.0),
+                (
+                    "torque_constant_error",
+                    p.torque_constant_error,
+                    p.torque_constant_error.abs() < 1.0,
+                ),
+                ("delay", p.delay, p.delay >= 0.0),
+                ("lag", p.lag, p.lag >= 0.0),
+                (
+                    "torque_loop_rate",
+                    p.torque_loop_rate,
+                    p.torque_loop_rate > 0.0,
+                ),
+                (
+                    "torque_loop_gain",
+                    p.torque_loop_gain,
+                    p.torque_loop_gain >= 0.0,
+                ),
+            ];
+            for (field, val, ok) in checks {
+                if !val.is_finite() || !ok {
+                    return Err(format!(
+                        "actuator field `{field}` = {val} for joint '{}': allowed: a finite value {}",
+                        j.name,
+                        match field {
+                            "torque_constant_error" => "in (−1, 1)",
+                            "torque_loop_rate" => "> 0",
+                            _ => "≥ 0",
+                        }
+                    ));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Put each joint's reflected rotor inertia into the model (it enters M's diagonal).
+    pub fn apply_armature(&self, model: &mut Model) {
+        for k in 0..model.joints.len() {
+            let a = self.actuator(&model.joints[k].name).armature;
+            model.joints[k].armature = a;
+        }
+    }
+
+    /// Nominal joint positions in the model's joint order.
+    pub fn nominal_joints(&self, model: &Model) -> Vec<f64> {
+        model
+            .joints
+            .iter()
+            .map(|j| self.nominal.get(&j.name).copied().unwrap_or(0.0))
+            .collect()
+    }
+}
