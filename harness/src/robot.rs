@@ -1,0 +1,94 @@
+//! Loading a robot: the facts TOML, the URDF it names, the rigid-body model with the facts
+//! applied. The demo quadruped is compiled into the binary so the tool runs with no files.
+
+use gripsweep_controllers::{Model, RobotFacts, RootKind};
+use std::path::{Path, PathBuf};
+
+/// The demo quadruped's files, embedded.
+pub const DEMO_URDF: &str = include_str!("../../scenarios/robots/brindle.urdf");
+pub const DEMO_FACTS: &str = include_str!("../../scenarios/robots/brindle.toml");
+
+/// A robot ready to simulate and control: the parsed URDF (the plant reads its collision
+/// shapes), the model (armature applied), and the facts.
+#[derive(Clone, Debug)]
+pub struct LoadedRobot {
+    /// Where the facts came from (for messages and manifests).
+    pub source: String,
+    pub urdf_text: String,
+    pub facts_text: String,
+    pub urdf: urdf_rs::Robot,
+    pub model: Model,
+    pub facts: RobotFacts,
+}
+
+impl LoadedRobot {
+    /// The embedded demo quadruped.
+    pub fn demo() -> Result<LoadedRobot, String> {
+        Self::from_texts(
+            "<embedded brindle.toml>",
+            DEMO_FACTS,
+            "<embedded brindle.urdf>",
+            DEMO_URDF,
+        )
+    }
+
+    /// From a facts TOML on disk; its `urdf` path is relative to the TOML.
+    pub fn from_facts_file(path: &Path) -> Result<LoadedRobot, String> {
+        let facts_text = std::fs::read_to_string(path)
+            .map_err(|e| format!("{}: cannot read the robot file: {e}", path.display()))?;
+        let facts = RobotFacts::from_toml_str(&facts_text)
+            .map_err(|e| format!("{}: {e}", path.display()))?;
+        let urdf_path: PathBuf = path.parent().unwrap_or(Path::new(".")).join(&facts.urdf);
+        let urdf_text = std::fs::read_to_string(&urdf_path).map_err(|e| {
+            format!(
+                "{}: field `urdf` = \"{}\": cannot read {}: {e}",
+                path.display(),
+                facts.urdf,
+                urdf_path.display()
+            )
+        })?;
+        Self::from_texts(
+            &path.display().to_string(),
+            &facts_text,
+            &urdf_path.display().to_string(),
+            &urdf_text,
+        )
+    }
+
+    /// From the two texts; `facts_name` and `urdf_name` label messages.
+    pub fn from_texts(
+        facts_name: &str,
+        facts_text: &str,
+        urdf_name: &str,
+        urdf_text: &str,
+    ) -> Result<LoadedRobot, String> {
+        let facts =
+            RobotFacts::from_toml_str(facts_text).map_err(|e| format!("{facts_name}: {e}"))?;
+        let urdf = urdf_rs::read_from_string(urdf_text)
+            .map_err(|e| format!("{urdf_name}: not a readable URDF: {e}"))?;
+        let mut model =
+            Model::from_urdf(&urdf, RootKind::Floating).map_err(|e| format!("{urdf_name}: {e}"))?;
+        facts
+            .validate(&model)
+            .map_err(|e| format!("{facts_name}: {e}"))?;
+        facts.apply_armature(&mut model);
+        Ok(LoadedRobot {
+            source: facts_name.to_string(),
+            urdf_text: urdf_text.to_string(),
+            facts_text: facts_text.to_string(),
+            urdf,
+            model,
+            facts,
+        })
+    }
+
+    /// Frame indices of the feet, in the facts' order.
+    pub fn foot_frames(&self) -> Vec<usize> {
+        self.facts
+            .feet
+            .frames
+            .iter()
+            .map(|f| self.model.frame_index(f).expect("validated"))
+            .collect()
+    }
+}
