@@ -38,6 +38,17 @@ pub fn integrate(model: &Model, q: &DVector<f64>, v: &DVector<f64>, dt: f64) -> 
 /// `integrate(q0, difference(q0, q1), 1) = q1`.
 pub fn difference(model: &Model, q0: &DVector<f64>, q1: &DVector<f64>) -> DVector<f64> {
     let mut out = DVector::zeros(model.nv());
+    difference_into(model, q0, q1, &mut out);
+    out
+}
+
+/// [`difference`] into a preallocated vector.
+pub fn difference_into(
+    model: &Model,
+    q0: &DVector<f64>,
+    q1: &DVector<f64>,
+    out: &mut DVector<f64>,
+) {
     if model.root == RootKind::Floating {
         let rel = base_pose(model, q0)
             .inverse()
@@ -50,5 +61,4 @@ pub fn difference(model: &Model, q0: &DVector<f64>, q1: &DVector<f64>) -> DVecto
     for k in 0..model.n_joints() {
         out[nvb + k] = q1[nqb + k] - q0[nqb + k];
     }
-    out
 }

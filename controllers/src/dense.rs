@@ -1,0 +1,268 @@
+//! Small dense factorizations that work in place on preallocated buffers.
+//!
+//! Written by hand because the control step must not allocate: nalgebra's QR, Cholesky and LU
+//! take ownership of their input and allocate their outputs on every call, and the matrices here
+//! are tiny (at most the 18–24 DOF of a legged robot) and change size with the number of stance
+//! feet, so each function works on the top-left `rows × cols` block of a larger buffer.
+//! Algorithms: Golub & Van Loan, "Matrix Computations" (4th ed., 2013): Householder QR
+//! (alg. 5.2.1), Cholesky (alg. 4.2.1), Gaussian elimination with partial pivoting (alg. 3.4.1).
+
+use nalgebra::{DMatrix, DVector};
+
+/// Householder QR of the top-left `m × n` block of `a` (m ≥ n). On return `a`'s upper `n × n`
+/// triangle holds R, `q` (at least m × m) holds the full orthogonal Q with A = Q [R; 0], and
+/// `v` (at least m × n) holds the Householder vectors. Returns the smallest |R_jj|, for rank
+/// checks.
+pub fn householder_qr(
+    a: &mut DMatrix<f64>,
+    m: usize,
+    n: usize,
+    q: &mut DMatrix<f64>,
+    v: &mut DMatrix<f64>,
+) -> f64 {
+    debug_assert!(m >= n && q.nrows() >= m && q.ncols() >= m && v.nrows() >= m && v.ncols() >= n);
+    let mut min_diag = f64::INFINITY;
+    for j in 0..n {
+        let mut norm2 = 0.0;
+        for i in j..m {
+            norm2 += a[(i, j)] * a[(i, j)];
+        }
+        let norm = norm2.sqrt();
+        let x0 = a[(j, j)];
+        let alpha = if x0 >= 0.0 { -norm } else { norm };
+        // v = x − α e₁, normalised; skip when the column is already zero below the diagonal.
+        let mut vnorm2 = 0.0;
+        for i in 0..m {
+            let vi = if i < j {
+                0.0
+            } else if i == j {
+                x0 - alpha
+            } else {
+                a[(i, j)]
+            };
+            v[(i, j)] = vi;
+            vnorm2 += vi * vi;
+        }
+        if vnorm2 > 0.0 {
+            let inv = 1.0 / vnorm2.sqrt();
+            for i in j..m {
+                v[(i, j)] *= inv;
+            }
+            // A[j.., j..] −= 2 v (vᵀ A[j.., j..])
+            for c in j..n {
+                let mut dot = 0.0;
+                for i in j..m {
+                    dot += v[(i, j)] * a[(i, c)];
+                }
+                for i in j..m {
+                    a[(i, c)] -= 2.0 * v[(i, j)] * dot;
+                }
+            }
+        }
+        min_diag = min_diag.min(a[(j, j)].abs());
+    }
+    // Q = H₀ H₁ … H_{n−1} applied to the identity, last reflector first.
+    for r in 0..m {
+        for c in 0..m {
+            q[(r, c)] = if r == c { 1.0 } else { 0.0 };
+        }
+    }
+    for j in (0..n).rev() {
+        for c in 0..m {
+            let mut dot = 0.0;
+            for i in j..m {
+                dot += v[(i, j)] * q[(i, c)];
+            }
+            if dot != 0.0 {
+                for i in j..m {
+                    q[(i, c)] -= 2.0 * v[(i, j)] * dot;
+                }
+            }
+        }
+    }
+    if n == 0 { 0.0 } else { min_diag }
+}
+
+/// Solve R x = b in place (R upper triangular, top-left n × n of `r`).
+pub fn solve_upper(r: &DMatrix<f64>, n: usize, b: &mut [f64]) {
+    for i in (0..n).rev() {
+        let mut s = b[i];
+        for k in i + 1..n {
+            s -= r[(i, k)] * b[k];
+        }
+        b[i] = s / r[(i, i)];
+    }
+}
+
+/// Solve Rᵀ x = b in place (R upper triangular).
+pub fn solve_upper_transposed(r: &DMatrix<f64>, n: usize, b: &mut [f64]) {
+    for i in 0..n {
+        let mut s = b[i];
+        for k in 0..i {
+            s -= r[(k, i)] * b[k];
+        }
+        b[i] = s / r[(i, i)];
+    }
+}
+
+/// Cholesky factorization in place of the top-left n × n block (lower triangle L with
+/// A = L Lᵀ written over it). Returns false if the block is not positive definite.
+pub fn cholesky_in_place(a: &mut DMatrix<f64>, n: usize) -> bool {
+    for j in 0..n {
+        let mut d = a[(j, j)];
+        for k in 0..j {
+            d -= a[(j, k)] * a[(j, k)];
+        }
+        if d <= 0.0 || !d.is_finite() {
+            return false;
+        }
+        let d = d.sqrt();
+        a[(j, j)] = d;
+        for i in j + 1..n {
+            let mut s = a[(i, j)];
+            for k in 0..j {
+                s -= a[(i, k)] * a[(j, k)];
+            }
+            a[(i, j)] = s / d;
+        }
+    }
+    true
+}
+
+/// Solve L Lᵀ x = b in place with the factor from [`cholesky_in_place`].
+pub fn cholesky_solve(l: &DMatrix<f64>, n: usize, b: &mut [f64]) {
+    for i in 0..n {
+        let mut s = b[i];
+        for k in 0..i {
+            s -= l[(i, k)] * b[k];
+        }
+        b[i] = s / l[(i, i)];
+    }
+    for i in (0..n).rev() {
+        let mut s = b[i];
+        for k in i + 1..n {
+            s -= l[(k, i)] * b[k];
+        }
+        b[i] = s / l[(i, i)];
+    }
+}
+
+/// Solve A x = b in place by Gaussian elimination with partial pivoting on the top-left n × n
+/// block of `a` (destroyed). Returns false when a pivot is (numerically) zero.
+pub fn lu_solve_in_place(a: &mut DMatrix<f64>, n: usize, b: &mut [f64]) -> bool {
+    let scale = (0..n)
+        .flat_map(|i| (0..n).map(move |j| (i, j)))
+        .map(|(i, j)| a[(i, j)].abs())
+        .fold(0.0, f64::max);
+    for k in 0..n {
+        let mut p = k;
+        for i in k + 1..n {
+            if a[(i, k)].abs() > a[(p, k)].abs() {
+                p = i;
+            }
+        }
+        if a[(p, k)].abs() <= 1e-14 * scale.max(1e-300) {
+            return false;
+        }
+        if p != k {
+            for c in 0..n {
+                let t = a[(k, c)];
+                a[(k, c)] = a[(p, c)];
+                a[(p, c)] = t;
+            }
+            b.swap(k, p);
+        }
+        let pivot = a[(k, k)];
+        for i in k + 1..n {
+            let f = a[(i, k)] / pivot;
+            if f != 0.0 {
+                for c in k + 1..n {
+                    a[(i, c)] -= f * a[(k, c)];
+                }
+                b[i] -= f * b[k];
+            }
+            a[(i, k)] = 0.0;
+        }
+    }
+    for i in (0..n).rev() {
+        let mut s = b[i];
+        for c in i + 1..n {
+            s -= a[(i, c)] * b[c];
+        }
+        b[i] = s / a[(i, i)];
+    }
+    true
+}
+
+/// y = A x for the top-left rows × cols block (no allocation).
+pub fn mat_vec(a: &DMatrix<f64>, rows: usize, cols: usize, x: &[f64], y: &mut [f64]) {
+    for r in 0..rows {
+        let mut s = 0.0;
+        for c in 0..cols {
+            s += a[(r, c)] * x[c];
+        }
+        y[r] = s;
+    }
+}
+
+/// Copy of a slice into the first entries of a vector.
+pub fn copy_into(dst: &mut DVector<f64>, src: &[f64]) {
+    dst.as_mut_slice()[..src.len()].copy_from_slice(src);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn test_matrix(m: usize, n: usize, seed: f64) -> DMatrix<f64> {
+        DMatrix::from_fn(m, n, |i, j| ((i * 7 + j * 3) as f64 * 0.37 + seed).sin())
+    }
+
+    #[test]
+    fn qr_reconstructs_and_is_orthogonal() {
+        let (m, n) = (18, 9);
+        let a0 = test_matrix(m, n, 0.3);
+        let mut a = DMatrix::zeros(24, 12);
+        a.view_mut((0, 0), (m, n)).copy_from(&a0);
+        let mut q = DMatrix::zeros(24, 24);
+        let mut v = DMatrix::zeros(24, 12);
+        let min_diag = householder_qr(&mut a, m, n, &mut q, &mut v);
+        assert!(min_diag > 1e-6);
+        let qm = q.view((0, 0), (m, m)).into_owned();
+        assert!((qm.transpose() * &qm - DMatrix::identity(m, m)).amax() < 1e-14);
+        let mut r = DMatrix::zeros(m, n);
+        for i in 0..n {
+            for j in i..n {
+                r[(i, j)] = a[(i, j)];
+            }
+        }
+        assert!((&qm * r - a0).amax() < 1e-13);
+    }
+
+    #[test]
+    fn solvers_match_nalgebra() {
+        let n = 7;
+        let g = test_matrix(n, n, 1.1);
+        let spd = &g * g.transpose() + DMatrix::identity(n, n);
+        let b: Vec<f64> = (0..n).map(|i| (i as f64).cos()).collect();
+        let expect = spd
+            .clone()
+            .lu()
+            .solve(&DVector::from_vec(b.clone()))
+            .unwrap();
+        let mut l = spd.clone();
+        assert!(cholesky_in_place(&mut l, n));
+        let mut x = b.clone();
+        cholesky_solve(&l, n, &mut x);
+        assert!((DVector::from_vec(x) - &expect).amax() < 1e-12);
+        let mut a = g.clone();
+        let mut x = b.clone();
+        assert!(lu_solve_in_place(&mut a, n, &mut x));
+        let expect = g.clone().lu().solve(&DVector::from_vec(b.clone())).unwrap();
+        assert!((DVector::from_vec(x) - expect).amax() < 1e-11);
+        let mut singular = DMatrix::zeros(3, 3);
+        singular[(0, 0)] = 1.0;
+        let mut y = vec![1.0, 1.0, 1.0];
+        assert!(!lu_solve_in_place(&mut singular, 3, &mut y));
+    }
+}

@@ -1,0 +1,335 @@
+//! What the model-based laws share: the dynamics terms at the observed state, the stance
+//! contact Jacobian and its orthogonal decomposition, the reference acceleration with feedback
+//! on the plan, and the low-gain joint PD. They differ only in how they pick τ (and so the
+//! contact forces) among the torques consistent with the constrained dynamics.
+//!
+//! Floating-base dynamics M v̇ + h = Sᵀτ + J_cᵀλ with stance feet held: J_c v̇ + J̇_c v = 0.
+//! QR of J_cᵀ = Q [R; 0], Q = [Q_c Q_u] (Mistry, Buchli & Schaal, "Inverse dynamics control of
+//! floating base systems using orthogonal decomposition", ICRA 2010): the rows Q_uᵀ remove the
+//! unknown contact forces, Q_uᵀ (M v̇ + h) = Q_uᵀ Sᵀ τ, and λ = R⁻¹ Q_cᵀ (M v̇ + h − Sᵀτ).
+
+use super::{LawSettings, LawStatus, Observation, Target};
+use crate::algorithms::{
+    Workspace, crba_after_fk, forward_kinematics, frame_bias_acceleration, frame_jacobian,
+    rnea_after_fk, velocities_and_bias,
+};
+use crate::configuration::difference_into;
+use crate::dense::{
+    cholesky_in_place, cholesky_solve, householder_qr, solve_upper, solve_upper_transposed,
+};
+use crate::model::{Model, RootKind};
+use crate::spatial::Vec3;
+use nalgebra::{DMatrix, DVector};
+
+pub struct WholeBody {
+    pub model: Model,
+    pub ws: Workspace,
+    /// Frame index of each foot.
+    pub feet: Vec<usize>,
+    pub settings: LawSettings,
+    pub nv: usize,
+    pub nj: usize,
+    /// Feet in stance this step (indices into `feet`), and their count.
+    pub stance: Vec<usize>,
+    pub k: usize,
+    jac3: DMatrix<f64>,
+    /// J_cᵀ of the stance feet (nv × 3k, world-aligned translational rows of each foot).
+    pub jct: DMatrix<f64>,
+    /// After the QR: R in the top 3k × 3k triangle.
+    qr: DMatrix<f64>,
+    /// The full orthogonal factor Q (nv × nv).
+    pub q: DMatrix<f64>,
+    householder: DMatrix<f64>,
+    /// J̇_c v of the stance feet.
+    pub jdot_v: DVector<f64>,
+    /// Configuration error q_plan ⊖ q.
+    err: DVector<f64>,
+    /// Reference acceleration before and after projection onto the contact constraint.
+    pub vdot_ref: DVector<f64>,
+    pub vdot: DVector<f64>,
+    /// h(q, v) and M v̇ + h.
+    pub h: DVector<f64>,
+    pub rhs: DVector<f64>,
+    /// Torques from the law's contact-force distribution (before the joint PD).
+    pub tau_id: DVector<f64>,
+    /// Predicted contact forces of the stance feet, stacked (3k).
+    pub lambda: DVector<f64>,
+    /// Predicted force per foot (world), zero in swing.
+    pub forces: Vec<Vec3>,
+    scratch_n: DMatrix<f64>,
+    scratch_v: Vec<f64>,
+    scratch_c: Vec<f64>,
+}
+
+impl WholeBody {
+    pub fn new(model: Model, feet: Vec<usize>, settings: &LawSettings) -> Self {
+        assert_eq!(
+            model.root,
+            RootKind::Floating,
+            "the whole-body laws need a floating base"
+        );
+        let nv = model.nv();
+        let nj = model.n_joints();
+        let nf = feet.len();
+        let ws = Workspace::new(&model);
+        WholeBody {
+            ws,
+            nv,
+            nj,
+            stance: Vec::with_capacity(nf),
+            k: 0,
+            jac3: DMatrix::zeros(3, nv),
+            jct: DMatrix::zeros(nv, 3 * nf),
+            qr: DMatrix::zeros(nv, 3 * nf),
+            q: DMatrix::zeros(nv, nv),
+            householder: DMatrix::zeros(nv, 3 * nf),
+            jdot_v: DVector::zeros(3 * nf),
+            err: DVector::zeros(nv),
+            vdot_ref: DVector::zeros(nv),
+            vdot: DVector::zeros(nv),
+            h: DVector::zeros(nv),
+            rhs: DVector::zeros(nv),
+            tau_id: DVector::zeros(nj),
+            lambda: DVector::zeros(3 * nf),
+            forces: vec![Vec3::zeros(); nf],
+            scratch_n: DMatrix::zeros(nv.max(nj), nv.max(nj)),
+            scratch_v: vec![0.0; nv.max(nj)],
+            scratch_c: vec![0.0; 3 * nf],
+            feet,
+            settings: settings.clone(),
+            model,
+        }
+    }
+
+    /// Rows of the projected dynamics, nv − 3k.
+    pub fn free_rows(&self) -> usize {
+        self.nv - 3 * self.k
+    }
+
+    /// Entry (i, j) of A = Q_uᵀ Sᵀ: row i of the contact-free dynamics, joint j.
+    #[inline]
+    pub fn a_entry(&self, i: usize, j: usize) -> f64 {
+        self.q[(6 + j, 3 * self.k + i)]
+    }
+
+    /// Upper-triangular R of J_cᵀ = Q [R; 0].
+    pub fn r(&self) -> &DMatrix<f64> {
+        &self.qr
+    }
+
+    /// Dynamics terms, stance Jacobian, its decomposition, the projected reference
+    /// acceleration and rhs = M v̇ + h. `Err(Failed)` if the stance Jacobian is singular.
+    pub fn prepare(&mut self, obs: &Observation, target: &Target) -> Result<(), LawStatus> {
+        let model = &self.model;
+        let ws = &mut self.ws;
+        forward_kinematics(model, ws, obs.q);
+        crba_after_fk(model, ws);
+        // h = RNEA(q, v, 0): the workspace's τ with a zero acceleration (vdot as zero buffer).
+        self.vdot.fill(0.0);
+        rnea_after_fk(model, ws, obs.v, &self.vdot);
+        self.h.copy_from(&ws.tau);
+        velocities_and_bias(model, ws, obs.v);
+
+        self.stance.clear();
+        for (i, &s) in target.stance.iter().enumerate() {
+            if s {
+                self.stance.push(i);
+            }
+        }
+        self.k = self.stance.len();
+        let k = self.k;
+        for (c, &i) in self.stance.iter().enumerate() {
+            let frame = self.feet[i];
+            frame_jacobian(model, ws, frame, &mut self.jac3, 0, false);
+            for r in 0..3 {
+                for col in 0..self.nv {
+                    self.jct[(col, 3 * c + r)] = self.jac3[(r, col)];
+                }
+            }
+            let b = frame_bias_acceleration(model, ws, frame);
+            for r in 0..3 {
+                self.jdot_v[3 * c + r] = b[r];
+            }
+        }
+        for c in 0..3 * k {
+            for r in 0..self.nv {
+                self.qr[(r, c)] = self.jct[(r, c)];
+            }
+        }
+        let min_diag = householder_qr(
+            &mut self.qr,
+            self.nv,
+            3 * k,
+            &mut self.q,
+            &mut self.householder,
+        );
+        if k > 0 && min_diag < 1e-9 {
+            return Err(LawStatus::Failed);
+        }
+
+        // v̇_ref = v̇_plan + K_d (v_plan − v) + K_p (q_plan ⊖ q)
+        difference_into(model, obs.q, target.q, &mut self.err);
+        let s = &self.settings;
+        for i in 0..self.nv {
+            let (kp, kd) = match i {
+                0..3 => (s.base_kp, s.base_kd),
+                3..6 => (s.orient_kp, s.orient_kd),
+                _ => (s.posture_kp, s.posture_kd),
+            };
+            self.vdot_ref[i] = target.a[i] + kd * (target.v[i] - obs.v[i]) + kp * self.err[i];
+        }
+        // Least-change projection onto J_c v̇ = −J̇_c v: v̇ = v̇_ref − J_c⁺ (J_c v̇_ref + J̇_c v),
+        // J_c⁺ = Q_c R⁻ᵀ from the same decomposition.
+        let c = &mut self.scratch_c;
+        for col in 0..3 * k {
+            let mut sum = self.jdot_v[col];
+            for r in 0..self.nv {
+                sum += self.jct[(r, col)] * self.vdot_ref[r];
+            }
+            c[col] = sum;
+        }
+        solve_upper_transposed(&self.qr, 3 * k, c);
+        for r in 0..self.nv {
+            let mut corr = 0.0;
+            for col in 0..3 * k {
+                corr += self.q[(r, col)] * c[col];
+            }
+            self.vdot[r] = self.vdot_ref[r] - corr;
+        }
+        // rhs = M v̇ + h
+        for r in 0..self.nv {
+            let mut sum = self.h[r];
+            for col in 0..self.nv {
+                sum += ws.mass_matrix[(r, col)] * self.vdot[col];
+            }
+            self.rhs[r] = sum;
+        }
+        Ok(())
+    }
+
+    /// b = Q_uᵀ rhs into `out` (nv − 3k entries).
+    pub fn projected_rhs(&self, out: &mut [f64]) {
+        let k3 = 3 * self.k;
+        for (i, o) in out.iter_mut().enumerate().take(self.nv - k3) {
+            let mut sum = 0.0;
+            for r in 0..self.nv {
+                sum += self.q[(r, k3 + i)] * self.rhs[r];
+            }
+            *o = sum;
+        }
+    }
+
+    /// The minimum-norm τ with Q_uᵀ Sᵀ τ = Q_uᵀ (M v̇ + h): τ = (Q_uᵀSᵀ)⁺ Q_uᵀ (M v̇ + h).
+    /// With fewer than two stance feet the system is overdetermined: least squares, reported
+    /// as underactuated.
+    pub fn min_torque(&mut self) -> LawStatus {
+        let rows = self.free_rows();
+        let nj = self.nj;
+        let mut b = std::mem::take(&mut self.scratch_v);
+        self.projected_rhs(&mut b);
+        let status;
+        if rows <= nj {
+            // τ = Aᵀ (A Aᵀ)⁻¹ b
+            for i in 0..rows {
+                for j in 0..=i {
+                    let mut s = 0.0;
+                    for c in 0..nj {
+                        s += self.a_entry(i, c) * self.a_entry(j, c);
+                    }
+                    self.scratch_n[(i, j)] = s;
+                    self.scratch_n[(j, i)] = s;
+                }
+            }
+            if !cholesky_in_place(&mut self.scratch_n, rows) {
+                self.scratch_v = b;
+                self.tau_id.fill(0.0);
+                return LawStatus::Failed;
+            }
+            cholesky_solve(&self.scratch_n, rows, &mut b[..rows]);
+            for c in 0..nj {
+                let mut s = 0.0;
+                for i in 0..rows {
+                    s += self.a_entry(i, c) * b[i];
+                }
+                self.tau_id[c] = s;
+            }
+            status = LawStatus::Solved;
+        } else {
+            // τ = (AᵀA)⁻¹ Aᵀ b, a whisker of regularisation for a foot-less flight phase.
+            let mut atb = [0.0; 64];
+            for c in 0..nj {
+                let mut s = 0.0;
+                for i in 0..rows {
+                    s += self.a_entry(i, c) * b[i];
+                }
+                atb[c] = s;
+                for d in 0..=c {
+                    let mut s = 0.0;
+                    for i in 0..rows {
+                        s += self.a_entry(i, c) * self.a_entry(i, d);
+                    }
+                    let reg = if c == d { 1e-9 } else { 0.0 };
+                    self.scratch_n[(c, d)] = s + reg;
+                    self.scratch_n[(d, c)] = s + reg;
+                }
+            }
+            if !cholesky_in_place(&mut self.scratch_n, nj) {
+                self.scratch_v = b;
+                self.tau_id.fill(0.0);
+                return LawStatus::Failed;
+            }
+            cholesky_solve(&self.scratch_n, nj, &mut atb[..nj]);
+            for c in 0..nj {
+                self.tau_id[c] = atb[c];
+            }
+            status = LawStatus::Underactuated;
+        }
+        self.scratch_v = b;
+        status
+    }
+
+    /// λ = R⁻¹ Q_cᵀ (M v̇ + h − Sᵀ τ_id), and the per-foot forces.
+    pub fn predict_forces(&mut self) {
+        let k3 = 3 * self.k;
+        for col in 0..k3 {
+            let mut s = 0.0;
+            for r in 0..self.nv {
+                let st = if r >= 6 { self.tau_id[r - 6] } else { 0.0 };
+                s += self.q[(r, col)] * (self.rhs[r] - st);
+            }
+            self.lambda[col] = s;
+        }
+        solve_upper(&self.qr, k3, &mut self.lambda.as_mut_slice()[..k3]);
+        for f in self.forces.iter_mut() {
+            *f = Vec3::zeros();
+        }
+        for (c, &i) in self.stance.iter().enumerate() {
+            self.forces[i] = Vec3::new(
+                self.lambda[3 * c],
+                self.lambda[3 * c + 1],
+                self.lambda[3 * c + 2],
+            );
+        }
+    }
+
+    /// τ_out = τ_id + K_p (q_plan − q) + K_d (v_plan − v) on the joints: the low-gain joint
+    /// feedback every model-based law carries (inverse dynamics alone cannot push a slipping
+    /// foot back).
+    pub fn output_with_joint_pd(&self, obs: &Observation, target: &Target, tau: &mut [f64]) {
+        let s = &self.settings;
+        for j in 0..self.nj {
+            tau[j] = self.tau_id[j]
+                + s.joint_kp * (target.q[7 + j] - obs.q[7 + j])
+                + s.joint_kd * (target.v[6 + j] - obs.v[6 + j]);
+        }
+    }
+
+    /// On failure: the joint feedback alone, forces unknown (zero).
+    pub fn fallback(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) {
+        self.tau_id.fill(0.0);
+        for f in self.forces.iter_mut() {
+            *f = Vec3::zeros();
+        }
+        self.output_with_joint_pd(obs, target, tau);
+    }
+}
