@@ -164,15 +164,98 @@ impl Model {
         q
     }
 
-    /// Build from URDF text. `source` names the file in messages.
+    /// Build from URDF text.
     pub fn from_urdf_str(text: &str, root: RootKind) -> Result<Model, ModelError> {
-        let robot = urdf_rs::read_from_string(text)
-            .map_err(|e| ModelError(format!("not a readable URDF: {e}")))?;
-        Self::from_urdf(&robot, root)
+        Self::from_urdf(&parse_urdf(text)?, root)
     }
 
     pub fn from_urdf(robot: &urdf_rs::Robot, root: RootKind) -> Result<Model, ModelError> {
         build_from_urdf(robot, root)
+    }
+}
+
+/// Parse URDF text. The parser's own messages carry no position (it re-serialises the XML
+/// before decoding it), so on failure the text is read again with a position-aware XML reader
+/// to say where: an XML syntax error, an unsupported joint type, or an attribute that is not a
+/// number, each with its line and the link or joint it is in.
+pub fn parse_urdf(text: &str) -> Result<urdf_rs::Robot, ModelError> {
+    urdf_rs::read_from_string(text).map_err(|e| {
+        let raw = e.to_string();
+        let raw = raw.strip_prefix("custom: ").unwrap_or(&raw);
+        ModelError(
+            locate_urdf_problem(text).unwrap_or_else(|| format!("not a readable URDF: {raw}")),
+        )
+    })
+}
+
+/// Attributes that hold numbers (one or three), by element.
+const NUMERIC_ATTRIBUTES: &[(&str, &[&str])] = &[
+    ("origin", &["xyz", "rpy"]),
+    ("axis", &["xyz"]),
+    ("mass", &["value"]),
+    ("inertia", &["ixx", "ixy", "ixz", "iyy", "iyz", "izz"]),
+    ("limit", &["lower", "upper", "effort", "velocity"]),
+];
+
+fn locate_urdf_problem(text: &str) -> Option<String> {
+    use xml::common::Position;
+    use xml::reader::{EventReader, XmlEvent};
+    let mut reader = EventReader::new(text.as_bytes());
+    // The innermost <link> or <joint> being read, for context.
+    let mut owner = String::from("the URDF");
+    loop {
+        let event = match reader.next() {
+            Ok(event) => event,
+            Err(e) => {
+                let pos = e.position();
+                return Some(format!(
+                    "not well-formed XML at line {}, column {}: {}",
+                    pos.row + 1,
+                    pos.column + 1,
+                    e.msg()
+                ));
+            }
+        };
+        let line = reader.position().row + 1;
+        match event {
+            XmlEvent::StartElement {
+                name, attributes, ..
+            } => {
+                let attr = |key: &str| {
+                    attributes
+                        .iter()
+                        .find(|a| a.name.local_name == key)
+                        .map(|a| a.value.as_str())
+                };
+                let tag = name.local_name.as_str();
+                if tag == "link" || tag == "joint" {
+                    owner = format!("{tag} '{}'", attr("name").unwrap_or("(no name)"));
+                }
+                if tag == "joint" {
+                    let kind = attr("type").unwrap_or("");
+                    if !["revolute", "continuous", "prismatic", "fixed"].contains(&kind) {
+                        return Some(format!(
+                            "line {line}: {owner} has type '{kind}', which is not supported; allowed: revolute, continuous, prismatic, fixed"
+                        ));
+                    }
+                }
+                let numeric = NUMERIC_ATTRIBUTES
+                    .iter()
+                    .find(|(t, _)| *t == tag)
+                    .map_or(&[][..], |(_, keys)| *keys);
+                for key in numeric {
+                    if let Some(value) = attr(key)
+                        && value.split_whitespace().any(|x| x.parse::<f64>().is_err())
+                    {
+                        return Some(format!(
+                            "line {line}: {owner}: <{tag} {key}=\"{value}\"> is not a number (or list of numbers)"
+                        ));
+                    }
+                }
+            }
+            XmlEvent::EndDocument => return None,
+            _ => {}
+        }
     }
 }
 

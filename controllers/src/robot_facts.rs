@@ -86,8 +86,9 @@ pub struct ActuatorOverride {
     pub torque_loop_gain: Option<f64>,
 }
 
+/// No `deny_unknown_fields` here: with a `flatten` field serde would then reject every key of
+/// the flattened defaults; unknown keys land in [`ActuatorDefaults::unknown`] instead.
 #[derive(Clone, Debug, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct ActuatorTable {
     #[serde(flatten)]
     pub defaults: ActuatorDefaults,
@@ -96,7 +97,7 @@ pub struct ActuatorTable {
 }
 
 /// Same fields as [`ActuatorParams`]; a separate type because `flatten` and `deny_unknown_fields`
-/// do not combine in serde, so unknown names are caught by [`RobotFacts::validate`] instead.
+/// do not combine in serde, so unknown names are caught by [`RobotFacts::from_toml_str`] instead.
 #[derive(Clone, Debug, Default, Deserialize)]
 pub struct ActuatorDefaults {
     pub armature: Option<f64>,
@@ -113,10 +114,26 @@ pub struct ActuatorDefaults {
 
 const ACTUATOR_FIELDS: &str = "armature, coulomb, viscous, torque_constant_error, delay, lag, torque_loop_rate, torque_loop_gain, joints";
 
+/// "line L, column C: message" instead of the parser's multi-line snippet, so a command-line
+/// tool can print one line prefixed with the file name.
+fn one_line_toml_error(text: &str, e: &toml::de::Error) -> String {
+    let msg = e.message().trim_end().replace('\n', "; ");
+    match e.span() {
+        Some(span) => {
+            let before = &text[..span.start.min(text.len())];
+            let line_start = before.rfind('\n').map_or(0, |i| i + 1);
+            let line = before.matches('\n').count() + 1;
+            let column = before[line_start..].chars().count() + 1;
+            format!("line {line}, column {column}: {msg}")
+        }
+        None => msg,
+    }
+}
+
 impl RobotFacts {
     /// Parse TOML text. Errors name the field and what is allowed.
     pub fn from_toml_str(text: &str) -> Result<RobotFacts, String> {
-        let facts: RobotFacts = toml::from_str(text).map_err(|e| e.to_string())?;
+        let facts: RobotFacts = toml::from_str(text).map_err(|e| one_line_toml_error(text, &e))?;
         if let Some(name) = facts.actuators.defaults.unknown.keys().next() {
             return Err(format!(
                 "unknown field `actuators.{name}`; allowed: {ACTUATOR_FIELDS}"

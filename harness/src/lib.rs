@@ -1,1 +1,2 @@
 pub use gripsweep_controllers;
+pub mod cli_robot;
