@@ -1,0 +1,577 @@
+//! Leg inverse kinematics: where must a leg's three joints be for its foot centre to sit at a
+//! target given in the base frame?
+//!
+//! * Analytic, for the common leg whose first joint turns about any axis (abduction or hip yaw)
+//!   and whose second and third joints turn about parallel axes (hip and knee pitch). The
+//!   geometry is read from the model's joint placements at build time, never assumed: the
+//!   pitch joints keep the foot at a fixed offset along their common axis, which fixes the
+//!   first angle (a sum of a sine and a cosine, two solutions); the distance from the hip axis
+//!   to the foot fixes the knee (law of cosines in the plane normal to the pitch axes, two
+//!   solutions); the hip angle then follows (the textbook decomposition of the 3-DOF leg, e.g.
+//!   Siciliano & Khatib (eds.), "Springer Handbook of Robotics", 2016, ch. 2 on inverse
+//!   kinematics by subproblems). Of the up to four solutions, the one within the joint limits
+//!   closest to the nominal posture is taken.
+//! * Numeric, for any other three-joint leg (and as the fallback when the analytic solution
+//!   fails its forward-kinematics check): Levenberg–Marquardt damped least squares on the
+//!   leg's three columns of the model's foot Jacobian (`frame_jacobian`), started from a seed
+//!   (Marquardt, "An algorithm for least-squares estimation of nonlinear parameters", SIAM J.
+//!   Appl. Math. 1963; Wampler, "Manipulator inverse kinematic solutions based on vector
+//!   formulations and damped least-squares methods", IEEE Trans. SMC 1986).
+
+use super::PlanError;
+use gripsweep_controllers::algorithms::{
+    Workspace, forward_kinematics, frame_jacobian, frame_pose,
+};
+use gripsweep_controllers::model::{JointKind, Model, RootKind};
+use gripsweep_controllers::robot_facts::RobotFacts;
+use gripsweep_controllers::spatial::{Mat3, Pose, Vec3, skew};
+use nalgebra::{DMatrix, DVector};
+use std::f64::consts::PI;
+
+/// How a leg's inverse kinematics is solved.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum IkMethod {
+    /// Closed form (three revolute joints, the last two parallel).
+    Analytic,
+    /// Damped least squares on the model's Jacobian.
+    Numeric,
+}
+
+/// Residual below which the numeric solution counts as converged, m.
+const NUMERIC_TOLERANCE: f64 = 1e-13;
+/// Largest forward-kinematics mismatch an analytic solution may show before the numeric
+/// method is used instead, m.
+const ANALYTIC_CHECK: f64 = 1e-10;
+/// Slack on joint limits for solutions that land on a limit up to rounding, rad.
+const LIMIT_SLACK: f64 = 1e-9;
+
+/// Rotation by `q` about the unit axis `a` (Rodrigues: I + sin q [a]× + (1 − cos q)[a]×²), the
+/// same formula the model's forward kinematics uses.
+fn axis_rotation(a: &Vec3, q: f64) -> Mat3 {
+    let (s, c) = q.sin_cos();
+    let ax = skew(a);
+    Mat3::identity() + ax * s + ax * ax * (1.0 - c)
+}
+
+/// The fixed geometry of a leg with a first revolute joint and two parallel pitch joints.
+#[derive(Clone, Debug)]
+struct PitchPair {
+    /// First joint: placement in the base, axis.
+    x1: Pose,
+    a1: Vec3,
+    /// Second joint: placement in body 1, axis (body-2 axes).
+    x2: Pose,
+    a2: Vec3,
+    /// Third joint: placement in body 2, axis (body-3 axes).
+    x3: Pose,
+    a3: Vec3,
+    /// Foot centre in body 3.
+    foot: Vec3,
+    /// The common pitch axis in body-1 axes.
+    u: Vec3,
+    /// Offset of the foot along `u` from body 1's origin (constant for any pitch angles).
+    k_u: f64,
+    /// Knee offset and foot offset, both in the third joint's axes, normal to its axis.
+    e_perp: Vec3,
+    f_perp: Vec3,
+}
+
+impl PitchPair {
+    /// Reads the geometry from the model; None when the leg is not of this kind.
+    fn from_model(model: &Model, joints: &[usize; 3], foot: &Vec3) -> Option<PitchPair> {
+        let [j1, j2, j3] = joints.map(|k| &model.joints[k]);
+        if [j1, j2, j3].iter().any(|j| j.kind != JointKind::Revolute) {
+            return None;
+        }
+        // The third axis seen in body 2 must be ± the second axis.
+        let a3_in_2 = j3.x_tree.rot * j3.axis;
+        if a3_in_2.cross(&j2.axis).norm() > 1e-12 {
+            return None;
+        }
+        let sign = a3_in_2.dot(&j2.axis).signum();
+        let u = j2.x_tree.rot * j2.axis;
+        // The first axis must not be parallel to the pitch axis (it would not move the foot
+        // out of the pitch plane).
+        if j1.axis.cross(&u).norm() < 0.1 {
+            return None;
+        }
+        // Along-axis part of the foot in body 2: knee offset along a2 plus the foot's offset
+        // along a3 (which the knee rotation keeps).
+        let d_u = j3.x_tree.trans.dot(&j2.axis) + sign * foot.dot(&j3.axis);
+        let k_u = j2.x_tree.trans.dot(&u) + d_u;
+        let e = j3.x_tree.rot.transpose() * j3.x_tree.trans;
+        let e_perp = e - j3.axis * e.dot(&j3.axis);
+        let f_perp = foot - j3.axis * foot.dot(&j3.axis);
+        if e_perp.norm() < 1e-6 || f_perp.norm() < 1e-6 {
+            return None;
+        }
+        Some(PitchPair {
+            x1: j1.x_tree,
+            a1: j1.axis,
+            x2: j2.x_tree,
+            a2: j2.axis,
+            x3: j3.x_tree,
+            a3: j3.axis,
+            foot: *foot,
+            u,
+            k_u,
+            e_perp,
+            f_perp,
+        })
+    }
+
+    /// Foot centre in the base frame for the three angles.
+    fn forward(&self, q: &[f64; 3]) -> Vec3 {
+        let in2 = self.x3.trans + self.x3.rot * (axis_rotation(&self.a3, q[2]) * self.foot);
+        let in1 = self.x2.trans + self.x2.rot * (axis_rotation(&self.a2, q[1]) * in2);
+        self.x1.trans + self.x1.rot * (axis_rotation(&self.a1, q[0]) * in1)
+    }
+
+    /// All closed-form solutions (up to four), or a reason why there is none.
+    fn solve(&self, target: &Vec3, out: &mut [[f64; 3]; 4]) -> Result<usize, String> {
+        // Target in the first joint's frame before its rotation.
+        let p1 = self.x1.rot.transpose() * (target - self.x1.trans);
+        // p1 · R(a1, q1) u = k_u  ⇔  A cos q1 + B sin q1 = C.
+        let along = self.a1.dot(&self.u);
+        let u_perp = self.u - self.a1 * along;
+        let (a, b) = (p1.dot(&u_perp), p1.dot(&self.a1.cross(&self.u)));
+        let c = self.k_u - along * p1.dot(&self.a1);
+        let q1_roots = sine_cosine_roots(a, b, c).ok_or_else(|| {
+            format!(
+                "no angle of the first joint brings it to the leg's sideways offset {:.4} m (the target is {:.4} m from that joint's axis)",
+                self.k_u,
+                (p1 - self.a1 * p1.dot(&self.a1)).norm()
+            )
+        })?;
+        let mut n = 0;
+        let mut knee_reason = String::new();
+        for q1 in q1_roots {
+            // Foot relative to the second joint, in body-2 axes before its rotation.
+            let p_leg = axis_rotation(&self.a1, q1).transpose() * p1;
+            let r2 = self.x2.rot.transpose() * (p_leg - self.x2.trans);
+            let r2_perp = r2 - self.a2 * r2.dot(&self.a2);
+            // |e⊥ + R(a3, q3) f⊥|² = |r2⊥|²  ⇔  A3 cos q3 + B3 sin q3 = C3.
+            let a3c = self.e_perp.dot(&self.f_perp);
+            let b3c = self.e_perp.dot(&self.a3.cross(&self.f_perp));
+            let c3 = 0.5
+                * (r2_perp.norm_squared()
+                    - self.e_perp.norm_squared()
+                    - self.f_perp.norm_squared());
+            let Some(q3_roots) = sine_cosine_roots(a3c, b3c, c3) else {
+                let (le, lf) = (self.e_perp.norm(), self.f_perp.norm());
+                knee_reason = format!(
+                    "it is {:.4} m from the hip pitch axis; the leg spans {:.4}–{:.4} m",
+                    r2_perp.norm(),
+                    (le - lf).abs(),
+                    le + lf
+                );
+                continue;
+            };
+            for q3 in q3_roots {
+                let w2 = self.x3.trans + self.x3.rot * (axis_rotation(&self.a3, q3) * self.foot);
+                let w2_perp = w2 - self.a2 * w2.dot(&self.a2);
+                // R(a2, q2) w2⊥ = r2⊥: the signed angle between them about a2.
+                let q2 = self
+                    .a2
+                    .dot(&w2_perp.cross(&r2_perp))
+                    .atan2(w2_perp.dot(&r2_perp));
+                out[n] = [q1, q2, q3];
+                n += 1;
+            }
+        }
+        if n == 0 {
+            return Err(knee_reason);
+        }
+        Ok(n)
+    }
+}
+
+/// The angles x with A cos x + B sin x = C: atan2(B, A) ± acos(C / √(A² + B²)); None when
+/// |C| exceeds √(A² + B²) beyond rounding.
+pub(crate) fn sine_cosine_roots(a: f64, b: f64, c: f64) -> Option<[f64; 2]> {
+    let rho = a.hypot(b);
+    if rho < 1e-12 {
+        return None;
+    }
+    let ratio = c / rho;
+    if ratio.abs() > 1.0 + 1e-12 {
+        return None;
+    }
+    let phi = b.atan2(a);
+    let delta = ratio.clamp(-1.0, 1.0).acos();
+    Some([phi + delta, phi - delta])
+}
+
+/// `q` shifted by a whole number of turns to lie closest to `reference`.
+fn nearest_turn(q: f64, reference: f64) -> f64 {
+    q - 2.0 * PI * ((q - reference) / (2.0 * PI)).round()
+}
+
+/// One leg: its foot frame, its three joints from the base outward, how it is solved.
+#[derive(Clone, Debug)]
+pub struct Leg {
+    foot: String,
+    frame: usize,
+    joints: [usize; 3],
+    nominal: [f64; 3],
+    lower: [f64; 3],
+    upper: [f64; 3],
+    names: [String; 3],
+    pitch_pair: Option<PitchPair>,
+    method: IkMethod,
+}
+
+impl Leg {
+    /// Name of the foot frame.
+    pub fn foot(&self) -> &str {
+        &self.foot
+    }
+    /// Index of the foot frame in the model.
+    pub fn frame(&self) -> usize {
+        self.frame
+    }
+    /// Indices of the leg's joints (model order), from the base outward.
+    pub fn joints(&self) -> [usize; 3] {
+        self.joints
+    }
+    /// Nominal angles of the leg's joints.
+    pub fn nominal(&self) -> [f64; 3] {
+        self.nominal
+    }
+    /// The method chosen for this leg.
+    pub fn method(&self) -> IkMethod {
+        self.method
+    }
+    /// Whether the leg has the structure the closed form needs.
+    pub fn has_closed_form(&self) -> bool {
+        self.pitch_pair.is_some()
+    }
+}
+
+/// Preallocated buffers for the numeric method.
+#[derive(Clone, Debug)]
+pub struct IkScratch {
+    ws: Workspace,
+    /// Configuration with the base at the world origin, so that world = base frame.
+    q: DVector<f64>,
+    jac: DMatrix<f64>,
+}
+
+/// The legs of a robot, one per foot in the facts' order.
+#[derive(Clone, Debug)]
+pub struct Legs {
+    legs: Vec<Leg>,
+}
+
+impl Legs {
+    /// Find each foot's leg in the model, check it is a chain of exactly three moving joints
+    /// from the base that no other leg shares, and pick its method: the closed form when the
+    /// structure fits and it reproduces the nominal posture and nearby targets, else numeric.
+    pub fn new(model: &Model, facts: &RobotFacts) -> Result<Legs, PlanError> {
+        if model.root != RootKind::Floating {
+            return Err(PlanError(
+                "the planner needs a floating-base model (a legged robot), not a fixed root".into(),
+            ));
+        }
+        let nominal_all = facts.nominal_joints(model);
+        let mut owner: Vec<Option<usize>> = vec![None; model.n_joints()];
+        let mut legs = Vec::with_capacity(facts.feet.frames.len());
+        for (i, name) in facts.feet.frames.iter().enumerate() {
+            let frame = model.frame_index(name).ok_or_else(|| {
+                PlanError(format!(
+                    "field `feet.frames`: foot '{name}' is not a frame of the model"
+                ))
+            })?;
+            let mut chain = Vec::new();
+            let mut b = model.frames[frame].body;
+            while b != 0 {
+                chain.push(b - 1);
+                b = model.parent(b);
+            }
+            chain.reverse();
+            if chain.len() != 3 {
+                return Err(PlanError(format!(
+                    "foot '{name}': its leg has {} moving joints between the base and the foot; the planner's leg inverse kinematics needs exactly 3",
+                    chain.len()
+                )));
+            }
+            for &k in &chain {
+                if let Some(other) = owner[k] {
+                    return Err(PlanError(format!(
+                        "foot '{name}' and foot '{}' share joint '{}': each foot needs its own leg",
+                        facts.feet.frames[other], model.joints[k].name
+                    )));
+                }
+                owner[k] = Some(i);
+            }
+            let joints = [chain[0], chain[1], chain[2]];
+            let foot_offset = model.frames[frame].placement.trans;
+            let pitch_pair = PitchPair::from_model(model, &joints, &foot_offset);
+            legs.push(Leg {
+                foot: name.clone(),
+                frame,
+                joints,
+                nominal: joints.map(|k| nominal_all[k]),
+                lower: joints.map(|k| model.joints[k].lower),
+                upper: joints.map(|k| model.joints[k].upper),
+                names: joints.map(|k| model.joints[k].name.clone()),
+                pitch_pair,
+                method: IkMethod::Numeric,
+            });
+        }
+        let mut set = Legs { legs };
+        let mut scratch = set.new_scratch(model);
+        for i in 0..set.legs.len() {
+            if set.closed_form_self_check(model, i, &mut scratch) {
+                set.legs[i].method = IkMethod::Analytic;
+            }
+        }
+        Ok(set)
+    }
+
+    /// The closed form must give back the nominal angles for the nominal foot position, and
+    /// reproduce nearby targets through the model's own forward kinematics.
+    fn closed_form_self_check(&self, model: &Model, i: usize, scratch: &mut IkScratch) -> bool {
+        let leg = &self.legs[i];
+        if leg.pitch_pair.is_none() {
+            return false;
+        }
+        let home = self.model_foot_position(model, i, &leg.nominal, scratch);
+        let Ok(q) = self.solve_with(model, i, &home, IkMethod::Analytic, &leg.nominal, scratch)
+        else {
+            return false;
+        };
+        if (0..3).any(|k| (q[k] - leg.nominal[k]).abs() > 1e-9) {
+            return false;
+        }
+        for d in [
+            Vec3::new(0.01, 0.0, 0.0),
+            Vec3::new(0.0, 0.01, 0.0),
+            Vec3::new(0.0, 0.0, 0.01),
+        ] {
+            for sign in [-1.0, 1.0] {
+                let target = home + d * sign;
+                // A nearby target may leave the joint limits on a leg at its limit: that says
+                // nothing about the closed form, so only real answers are checked.
+                if let Ok(q) =
+                    self.solve_with(model, i, &target, IkMethod::Analytic, &leg.nominal, scratch)
+                    && (self.model_foot_position(model, i, &q, scratch) - target).norm()
+                        > ANALYTIC_CHECK
+                {
+                    return false;
+                }
+            }
+        }
+        true
+    }
+
+    pub fn new_scratch(&self, model: &Model) -> IkScratch {
+        IkScratch {
+            ws: Workspace::new(model),
+            q: model.neutral(),
+            jac: DMatrix::zeros(3, model.nv()),
+        }
+    }
+
+    pub fn len(&self) -> usize {
+        self.legs.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.legs.is_empty()
+    }
+
+    pub fn leg(&self, i: usize) -> &Leg {
+        &self.legs[i]
+    }
+
+    /// Foot centre in the base frame for the leg's three angles, by the model's forward
+    /// kinematics (base at the origin).
+    pub fn model_foot_position(
+        &self,
+        model: &Model,
+        i: usize,
+        angles: &[f64; 3],
+        scratch: &mut IkScratch,
+    ) -> Vec3 {
+        let leg = &self.legs[i];
+        for (&joint, &angle) in leg.joints.iter().zip(angles) {
+            scratch.q[7 + joint] = angle;
+        }
+        forward_kinematics(model, &mut scratch.ws, &scratch.q);
+        frame_pose(model, &scratch.ws, leg.frame).trans
+    }
+
+    /// Joint angles putting foot `i`'s centre at `target` (base frame), with the leg's chosen
+    /// method; an analytic answer that fails its check falls back to the numeric method.
+    /// `seed` starts the numeric iterations (the previous solution along a trajectory).
+    pub fn solve(
+        &self,
+        model: &Model,
+        i: usize,
+        target: &Vec3,
+        seed: &[f64; 3],
+        scratch: &mut IkScratch,
+    ) -> Result<[f64; 3], String> {
+        let leg = &self.legs[i];
+        if leg.method == IkMethod::Analytic {
+            match self.solve_with(model, i, target, IkMethod::Analytic, seed, scratch) {
+                Ok(q) => {
+                    let pair = leg.pitch_pair.as_ref().expect("analytic legs have one");
+                    if (pair.forward(&q) - target).norm() <= ANALYTIC_CHECK {
+                        return Ok(q);
+                    }
+                }
+                // Out of reach or outside the limits: the numeric method would not do better.
+                Err(e) => return Err(e),
+            }
+        }
+        self.solve_with(model, i, target, IkMethod::Numeric, seed, scratch)
+    }
+
+    /// As [`Legs::solve`] with a given method (errors when the leg has no closed form).
+    pub fn solve_with(
+        &self,
+        model: &Model,
+        i: usize,
+        target: &Vec3,
+        method: IkMethod,
+        seed: &[f64; 3],
+        scratch: &mut IkScratch,
+    ) -> Result<[f64; 3], String> {
+        let leg = &self.legs[i];
+        if !target.iter().all(|x| x.is_finite()) {
+            return Err(format!("target {target:?} is not finite"));
+        }
+        let q = match method {
+            IkMethod::Analytic => self.closed_form(leg, target)?,
+            IkMethod::Numeric => self.numeric(model, leg, target, seed, scratch)?,
+        };
+        self.check_limits(leg, &q)?;
+        Ok(q)
+    }
+
+    fn check_limits(&self, leg: &Leg, q: &[f64; 3]) -> Result<(), String> {
+        for (k, &angle) in q.iter().enumerate() {
+            if angle < leg.lower[k] - LIMIT_SLACK || angle > leg.upper[k] + LIMIT_SLACK {
+                return Err(format!(
+                    "it needs joint '{}' = {angle:.4} rad, outside its limits [{}, {}]",
+                    leg.names[k], leg.lower[k], leg.upper[k]
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// The closed-form solution within the limits closest to the nominal posture.
+    fn closed_form(&self, leg: &Leg, target: &Vec3) -> Result<[f64; 3], String> {
+        let pair = leg
+            .pitch_pair
+            .as_ref()
+            .ok_or_else(|| format!("foot '{}': the leg has no closed-form solution", leg.foot))?;
+        let mut roots = [[0.0; 3]; 4];
+        let n = pair
+            .solve(target, &mut roots)
+            .map_err(|why| format!("target {} is out of reach: {why}", fmt3(target)))?;
+        let mut best: Option<([f64; 3], f64)> = None;
+        let mut first_violation = None;
+        for root in roots.iter().take(n) {
+            let q = [0, 1, 2].map(|k| nearest_turn(root[k], leg.nominal[k]));
+            if (pair.forward(&q) - target).norm() > 1e-6 {
+                continue;
+            }
+            if let Err(e) = self.check_limits(leg, &q) {
+                first_violation.get_or_insert(e);
+                continue;
+            }
+            let dist: f64 = (0..3).map(|k| (q[k] - leg.nominal[k]).powi(2)).sum();
+            if best.is_none_or(|(_, d)| dist < d) {
+                best = Some((q, dist));
+            }
+        }
+        match (best, first_violation) {
+            (Some((q, _)), _) => Ok(q),
+            (None, Some(e)) => Err(format!("target {}: {e}", fmt3(target))),
+            (None, None) => Err(format!(
+                "target {} is out of reach (no closed-form root reproduces it)",
+                fmt3(target)
+            )),
+        }
+    }
+
+    fn numeric(
+        &self,
+        model: &Model,
+        leg: &Leg,
+        target: &Vec3,
+        seed: &[f64; 3],
+        s: &mut IkScratch,
+    ) -> Result<[f64; 3], String> {
+        let cols = leg.joints.map(|k| 6 + k);
+        let mut q = *seed;
+        let residual = |q: &[f64; 3], s: &mut IkScratch| {
+            for (&joint, &angle) in leg.joints.iter().zip(q) {
+                s.q[7 + joint] = angle;
+            }
+            forward_kinematics(model, &mut s.ws, &s.q);
+            target - frame_pose(model, &s.ws, leg.frame).trans
+        };
+        let mut e = residual(&q, s);
+        // Levenberg–Marquardt: solve (JᵀJ + μ I) Δ = Jᵀ e; shrink μ after a step that lowers
+        // the residual (towards Gauss–Newton, quadratic convergence), grow it after one that
+        // does not (towards a short gradient step).
+        let mut mu = 1e-6;
+        for _ in 0..200 {
+            frame_jacobian(model, &s.ws, leg.frame, &mut s.jac, 0, false);
+            let j = Mat3::from_fn(|r, c| s.jac[(r, cols[c])]);
+            let jtj = j.transpose() * j;
+            let jte = j.transpose() * e;
+            if e.norm() < NUMERIC_TOLERANCE {
+                // Converged: one undamped Gauss–Newton step takes the residual from the
+                // tolerance to rounding level, so that the angles are as smooth in time as the
+                // closed form's (finite differences of them stay clean).
+                if let Some(delta) = jtj.lu().solve(&jte) {
+                    let trial = [q[0] + delta[0], q[1] + delta[1], q[2] + delta[2]];
+                    if residual(&trial, s).norm() < e.norm() {
+                        q = trial;
+                    }
+                }
+                return Ok(q);
+            }
+            let mut accepted = false;
+            while mu < 1e12 {
+                let Some(delta) = (jtj + Mat3::identity() * mu).lu().solve(&jte) else {
+                    mu *= 10.0;
+                    continue;
+                };
+                let trial = [q[0] + delta[0], q[1] + delta[1], q[2] + delta[2]];
+                let e_trial = residual(&trial, s);
+                if e_trial.norm() < e.norm() {
+                    q = trial;
+                    e = e_trial;
+                    mu = (mu * 0.1).max(1e-15);
+                    accepted = true;
+                    break;
+                }
+                mu *= 10.0;
+            }
+            if !accepted {
+                break;
+            }
+        }
+        // Leave the workspace at the last accepted point for callers that read it.
+        let e = residual(&q, s);
+        if e.norm() < NUMERIC_TOLERANCE {
+            return Ok(q);
+        }
+        Err(format!(
+            "target {} is out of reach: the closest the leg gets is {:.3e} m away",
+            fmt3(target),
+            e.norm()
+        ))
+    }
+}
+
+fn fmt3(v: &Vec3) -> String {
+    format!("({:.4}, {:.4}, {:.4}) m in the base frame", v.x, v.y, v.z)
+}

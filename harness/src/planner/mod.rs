@@ -1,0 +1,979 @@
+//! The planner: from a robot, the terrain and a gait, the one plan every controller of a cell
+//! follows: base pose, twist and acceleration, each foot's position, velocity and acceleration,
+//! the stance schedule, and the joint references that realise them.
+//!
+//! # How the plan is made
+//!
+//! * The trunk stays parallel to the terrain's tangent plane at the start (its z axis along
+//!   the normal, its x axis uphill), `body_height` above it along the normal. The base and the
+//!   feet move along polynomial pieces (`pieces.rs`) that meet with continuous acceleration:
+//!   minimum-jerk moves between rest points, a 64 h s³(1 − s)³ lift for swings, smoothstep speed
+//!   ramps for the trot. These are evaluated analytically at any time.
+//! * A stance foot's centre sits `radius` above the terrain along the normal at its spot and
+//!   does not move; a swing goes from lift-off to touchdown, lifted along the normal. Spots are
+//!   laid out in the tangent plane at the start and dropped onto the terrain's own height and
+//!   normal there (the same thing on a plane slope).
+//! * Joint angles come from each leg's inverse kinematics (`legs.rs`: closed form for a leg
+//!   with an abduction/hip-yaw joint and two parallel pitch joints, damped least squares on the
+//!   model's Jacobian otherwise). Joint rates and accelerations come through the Jacobian, not
+//!   by differencing: with the base motion known, per leg
+//!   q̇_leg = J_leg⁻¹ (ṗ_foot − J_base v_base) and
+//!   q̈_leg = J_leg⁻¹ (p̈_foot − J_base v̇_base − J̇ v),
+//!   J̇ v the foot's bias acceleration with the full v (differentiating ṗ = J v; e.g. Siciliano
+//!   et al., "Robotics: Modelling, Planning and Control", Springer 2009, §3.7 and §3.9).
+//! * Knots: at build time this exact solution is computed at knots no more than
+//!   [`KNOT_SPACING`] apart, with a knot at every breakpoint (where a piece or the stance set
+//!   changes). [`Plan::sample`] returns the base and feet analytically and the joints by quintic
+//!   Hermite interpolation of (q, q̇, q̈) between knots: exact at the knots, C² everywhere, and
+//!   the joint velocity and acceleration it returns are the derivatives of the joint position it
+//!   returns. Between breakpoints the motion is analytic, so the interpolation error is of order
+//!   h⁶ q⁽⁶⁾ / 46080 (far below 1e-12 rad for these gaits; the tests measure it against
+//!   [`Plan::evaluate`], the exact solution at any time). `sample` allocates nothing.
+//!
+//! # Centre of mass in the static crawl
+//!
+//! The crawl chooses base positions with the centre of mass treated as fixed in the base frame
+//! (its place in the starting posture, from the model's `center_of_mass`), projected along
+//! gravity onto the ground plane. The legs moving under the base shift the real centre of
+//! mass (a swinging leg of the demo quadruped is a ninth of its mass; the approximation misses
+//! by 2–10 mm there, more on steeper slopes), so the plan then computes the real projected
+//! centre of mass with the full model during every swing and widens the margin of each support
+//! edge by what the approximation missed, repeating until the real centre of mass keeps the
+//! margin at every knot of every swing.
+
+mod gaits;
+pub mod legs;
+mod pieces;
+mod support;
+
+pub use legs::{IkMethod, IkScratch, Leg, Legs};
+
+use crate::plant::terrain::Terrain;
+use gaits::{CrawlParams, CrawlSwing, Ground, Schedule, Setup, TrotParams};
+use gripsweep_controllers::algorithms::{
+    Workspace, center_of_mass, forward_kinematics, frame_bias_acceleration, frame_jacobian,
+    frame_pose, velocities_and_bias,
+};
+use gripsweep_controllers::model::Model;
+use gripsweep_controllers::robot_facts::RobotFacts;
+use gripsweep_controllers::spatial::{Mat3, Pose, Vec3};
+use nalgebra::{DMatrix, DVector};
+use pieces::{Piece, piece_at, quintic_hermite};
+use std::fmt;
+use support::P2;
+
+/// Largest time between joint knots, s.
+pub const KNOT_SPACING: f64 = 1e-3;
+/// Longest plan, s.
+pub const MAX_DURATION: f64 = 600.0;
+/// Shortest swing or base move, s.
+const MIN_PHASE: f64 = 0.01;
+/// A leg whose Jacobian has |det J| / Π |columns| below this is treated as singular.
+const SINGULAR_RATIO: f64 = 1e-3;
+/// Largest mismatch between the planned foot and the forward kinematics of the planned joints
+/// accepted at a knot, m.
+const FOOT_CHECK: f64 = 1e-9;
+/// Extra margin the crawl asks of the approximate centre of mass on top of the measured
+/// correction, so that the real one keeps the margin after the correction converges, m.
+const CRAWL_SAFETY: f64 = 1e-5;
+/// Spacing of the exact solutions in the crawl's coarse centre-of-mass pass, s.
+const CRAWL_CHECK_SPACING: f64 = 5e-3;
+/// Rounds of the crawl's centre-of-mass correction before giving up.
+const CRAWL_ROUNDS: usize = 12;
+
+/// A plan that cannot be made, with the parameter (or foot and time) it is about.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PlanError(pub String);
+
+impl fmt::Display for PlanError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+
+impl std::error::Error for PlanError {}
+
+/// The motion to plan.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Gait {
+    /// Hold the nominal stance.
+    Stand,
+    /// Static crawl up the slope: one swing foot at a time; before each swing the base shifts
+    /// so the centre of mass (projected along gravity onto the ground) lies inside the polygon
+    /// of the stance feet with `margin` (m) to every edge.
+    Crawl {
+        step_length: f64,
+        swing_height: f64,
+        cycle_period: f64,
+        body_height: f64,
+        margin: f64,
+    },
+    /// Weight shifting in place: all feet in stance; the base moves by `amplitude` towards each
+    /// foot in turn (rest to rest), one round per `period`.
+    WeightShift {
+        amplitude: f64,
+        period: f64,
+        body_height: f64,
+    },
+    /// Trot at a modest speed: diagonal pairs (for 4 feet; for 6 feet an alternating tripod)
+    /// swing together.
+    Trot {
+        step_length: f64,
+        swing_height: f64,
+        cycle_period: f64,
+        body_height: f64,
+    },
+}
+
+impl Gait {
+    fn name(&self) -> &'static str {
+        match self {
+            Gait::Stand => "Stand",
+            Gait::Crawl { .. } => "Crawl",
+            Gait::WeightShift { .. } => "WeightShift",
+            Gait::Trot { .. } => "Trot",
+        }
+    }
+
+    /// Every parameter checked: finite and in range.
+    fn validate(&self) -> Result<(), PlanError> {
+        let gait = self.name();
+        let check = |name: &str, value: f64, ok: bool, allowed: &str| {
+            if value.is_finite() && ok {
+                Ok(())
+            } else {
+                Err(PlanError(format!(
+                    "{gait}: `{name}` = {value}: allowed: a finite value {allowed}"
+                )))
+            }
+        };
+        match *self {
+            Gait::Stand => Ok(()),
+            Gait::Crawl {
+                step_length,
+                swing_height,
+                cycle_period,
+                body_height,
+                margin,
+            } => {
+                check("step_length", step_length, step_length >= 0.0, "≥ 0 m")?;
+                check("swing_height", swing_height, swing_height > 0.0, "> 0 m")?;
+                check("cycle_period", cycle_period, cycle_period > 0.0, "> 0 s")?;
+                check("body_height", body_height, body_height > 0.0, "> 0 m")?;
+                check("margin", margin, margin >= 0.0, "≥ 0 m")
+            }
+            Gait::WeightShift {
+                amplitude,
+                period,
+                body_height,
+            } => {
+                check("amplitude", amplitude, amplitude > 0.0, "> 0 m")?;
+                check("period", period, period > 0.0, "> 0 s")?;
+                check("body_height", body_height, body_height > 0.0, "> 0 m")
+            }
+            Gait::Trot {
+                step_length,
+                swing_height,
+                cycle_period,
+                body_height,
+            } => {
+                check("step_length", step_length, step_length >= 0.0, "≥ 0 m")?;
+                check("swing_height", swing_height, swing_height > 0.0, "> 0 m")?;
+                check("cycle_period", cycle_period, cycle_period > 0.0, "> 0 s")?;
+                check("body_height", body_height, body_height > 0.0, "> 0 m")
+            }
+        }
+    }
+}
+
+/// Everything a controller or the metrics need at one time.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PlanSample {
+    /// Full generalized reference (base + joints) in the model's conventions.
+    pub q: DVector<f64>,
+    pub v: DVector<f64>,
+    pub a: DVector<f64>,
+    /// Per foot, facts order.
+    pub stance: Vec<bool>,
+    /// Foot centres, world.
+    pub foot_pos: Vec<Vec3>,
+    pub foot_vel: Vec<Vec3>,
+    pub foot_acc: Vec<Vec3>,
+    pub base_pos: Vec3,
+    /// Which stance phase (changes when the stance set changes).
+    pub phase_index: usize,
+}
+
+/// Buffers for [`Plan::evaluate`] (the exact solution at any time).
+#[derive(Clone, Debug)]
+pub struct PlanScratch {
+    ws: Workspace,
+    jac: DMatrix<f64>,
+    ik: IkScratch,
+    /// Per leg: J_leg⁻¹ and p̈ − J_base v̇_base, between the velocity and acceleration passes.
+    legs: Vec<(Mat3, Vec3)>,
+}
+
+/// A plan: analytic base and feet, joints at knots.
+#[derive(Clone, Debug)]
+pub struct Plan {
+    model: Model,
+    legs: Legs,
+    duration: f64,
+    ground: Ground,
+    /// Base orientation as q stores it (x y z w).
+    base_quat: [f64; 4],
+    base: Vec<Piece>,
+    feet: Vec<Vec<Piece>>,
+    phase_starts: Vec<f64>,
+    phase_stance: Vec<Vec<bool>>,
+    breakpoints: Vec<f64>,
+    /// Joint knots: times, and n_joints values of q, q̇, q̈ per knot.
+    knot_t: Vec<f64>,
+    knot_q: Vec<f64>,
+    knot_v: Vec<f64>,
+    knot_a: Vec<f64>,
+    /// Nominal joint angles (joints on no leg hold them).
+    joint_nominal: Vec<f64>,
+    /// Joints that belong to no leg.
+    free_joints: Vec<usize>,
+    cycles: usize,
+    /// Crawl only: rounds of the centre-of-mass correction, and the largest widening of a
+    /// support edge it needed, m.
+    crawl_rounds: usize,
+    crawl_widening: f64,
+    /// Projection of the centre of mass along gravity onto the plane: (a, b) = s.xy − s.z g.xy / g.z.
+    gravity_local: Vec3,
+}
+
+impl Plan {
+    /// Make the plan. Errors name the parameter, or the foot and time, at fault.
+    pub fn build(
+        model: &Model,
+        facts: &RobotFacts,
+        terrain: &dyn Terrain,
+        gait: &Gait,
+        duration: f64,
+    ) -> Result<Plan, PlanError> {
+        if !(duration.is_finite() && duration > 0.0) {
+            return Err(PlanError(format!(
+                "duration = {duration}: allowed: a finite value > 0 s"
+            )));
+        }
+        if duration > MAX_DURATION {
+            return Err(PlanError(format!(
+                "duration = {duration} s: allowed: at most {MAX_DURATION} s (the joint knots of a plan, {:.0} per second, are kept in memory)",
+                1.0 / KNOT_SPACING
+            )));
+        }
+        gait.validate()?;
+        let radius = facts.feet.radius;
+        if !(radius.is_finite() && radius > 0.0) {
+            return Err(PlanError(format!(
+                "field `feet.radius` = {radius}: allowed: a radius > 0 m"
+            )));
+        }
+        let legs = Legs::new(model, facts)?;
+        let n_feet = legs.len();
+        if n_feet == 0 {
+            return Err(PlanError(
+                "field `feet.frames` is empty: no feet to plan".into(),
+            ));
+        }
+        let min_feet = match gait {
+            Gait::Stand => 1,
+            Gait::WeightShift { .. } => 3,
+            Gait::Crawl { .. } | Gait::Trot { .. } => 4,
+        };
+        if n_feet < min_feet {
+            return Err(PlanError(format!(
+                "{}: the robot has {n_feet} feet; this gait needs at least {min_feet}",
+                gait.name()
+            )));
+        }
+        // The shortest move of the gait must span a few knots.
+        let n = n_feet as f64;
+        let shortest = match *gait {
+            Gait::Stand => None,
+            Gait::Crawl { cycle_period, .. } => Some((
+                "cycle_period",
+                cycle_period,
+                cycle_period / n * (1.0 - gaits::CRAWL_SHIFT_FRACTION),
+            )),
+            Gait::WeightShift { period, .. } => Some(("period", period, period / n)),
+            Gait::Trot { cycle_period, .. } => Some((
+                "cycle_period",
+                cycle_period,
+                0.5 * cycle_period * gaits::TROT_SWING_FRACTION,
+            )),
+        };
+        if let Some((name, value, phase)) = shortest
+            && phase < MIN_PHASE
+        {
+            return Err(PlanError(format!(
+                "{}: `{name}` = {value} s makes moves of {phase:.4} s with {n_feet} feet; allowed: a period giving moves of at least {MIN_PHASE} s",
+                gait.name()
+            )));
+        }
+        let g_norm = model.gravity.norm();
+        if !(g_norm.is_finite() && g_norm > 0.0) {
+            return Err(PlanError(
+                "the model's gravity is zero: the planner projects the centre of mass along it"
+                    .into(),
+            ));
+        }
+
+        // The ground plane at the start.
+        let z0 = terrain.height_at(0.0, 0.0);
+        let (n, t1, t2) = terrain.surface_frame(0.0, 0.0);
+        let rot = Mat3::from_columns(&[t1, t2, n]);
+        if !(z0.is_finite() && rot.iter().all(|x| x.is_finite()))
+            || (rot.transpose() * rot - Mat3::identity()).amax() > 1e-9
+        {
+            return Err(PlanError(format!(
+                "terrain '{}': no valid surface frame at the origin (height {z0}, normal {n:?})",
+                terrain.label()
+            )));
+        }
+        let ground = Ground {
+            origin: Vec3::new(0.0, 0.0, z0),
+            rot,
+        };
+        let gravity_local = rot.transpose() * (model.gravity / g_norm);
+        if gravity_local.z > -1e-3 {
+            return Err(PlanError(format!(
+                "terrain '{}': gravity runs (nearly) along the ground; the planner needs ground it can stand on",
+                terrain.label()
+            )));
+        }
+
+        // Nominal stance in the base frame: the footprint and the nominal height.
+        let joint_nominal = facts.nominal_joints(model);
+        let mut ws = Workspace::new(model);
+        let mut q_nom = model.neutral();
+        for (k, &x) in joint_nominal.iter().enumerate() {
+            q_nom[7 + k] = x;
+        }
+        forward_kinematics(model, &mut ws, &q_nom);
+        let feet_base: Vec<Vec3> = (0..n_feet)
+            .map(|i| frame_pose(model, &ws, legs.leg(i).frame()).trans)
+            .collect();
+        let footprint: Vec<P2> = feet_base.iter().map(|f| P2::new(f.x, f.y)).collect();
+        let nominal_height = radius - feet_base.iter().map(|f| f.z).sum::<f64>() / n_feet as f64;
+        let height = match *gait {
+            Gait::Stand => nominal_height,
+            Gait::Crawl { body_height, .. }
+            | Gait::WeightShift { body_height, .. }
+            | Gait::Trot { body_height, .. } => body_height,
+        };
+        let (crawl_order, trot_group) = foot_order(&footprint);
+        let in_legs: Vec<bool> = (0..model.n_joints())
+            .map(|k| (0..n_feet).any(|i| legs.leg(i).joints().contains(&k)))
+            .collect();
+        let free_joints = (0..model.n_joints()).filter(|&k| !in_legs[k]).collect();
+        let mut setup = Setup {
+            terrain,
+            ground: ground.clone(),
+            radius,
+            duration,
+            foot_names: facts.feet.frames.clone(),
+            footprint,
+            height,
+            com_offset: P2::zeros(),
+            crawl_order,
+            trot_group,
+        };
+
+        // The plan skeleton; its pieces are replaced per gait below.
+        let base_rot = nalgebra::UnitQuaternion::from_rotation_matrix(
+            &nalgebra::Rotation3::from_matrix_unchecked(rot),
+        );
+        let mut plan = Plan {
+            model: model.clone(),
+            legs,
+            duration,
+            ground,
+            base_quat: [base_rot.i, base_rot.j, base_rot.k, base_rot.w],
+            base: Vec::new(),
+            feet: Vec::new(),
+            phase_starts: Vec::new(),
+            phase_stance: Vec::new(),
+            breakpoints: Vec::new(),
+            knot_t: Vec::new(),
+            knot_q: Vec::new(),
+            knot_v: Vec::new(),
+            knot_a: Vec::new(),
+            joint_nominal,
+            free_joints,
+            cycles: 0,
+            crawl_rounds: 0,
+            crawl_widening: 0.0,
+            gravity_local,
+        };
+
+        // The starting posture fixes where the centre of mass sits relative to the base.
+        plan.install(gaits::stand(&setup));
+        let mut scratch = plan.new_scratch();
+        let mut start = plan.new_sample();
+        plan.seed_nominal(&mut start);
+        plan.evaluate_exact(0.0, &mut scratch, &mut start)?;
+        forward_kinematics(&plan.model, &mut scratch.ws, &start.q);
+        let com = center_of_mass(&plan.model, &scratch.ws);
+        // The base starts at (0, 0) in the plane.
+        setup.com_offset = plan.project(&com);
+
+        match *gait {
+            Gait::Stand => {
+                plan.make_knots(&mut scratch)?;
+            }
+            Gait::WeightShift {
+                amplitude, period, ..
+            } => {
+                plan.install(gaits::weight_shift(&setup, amplitude, period)?);
+                plan.make_knots(&mut scratch)?;
+            }
+            Gait::Trot {
+                step_length,
+                swing_height,
+                cycle_period,
+                ..
+            } => {
+                let params = TrotParams {
+                    step_length,
+                    swing_height,
+                    cycle_period,
+                };
+                plan.install(gaits::trot(&setup, &params)?);
+                plan.make_knots(&mut scratch)?;
+            }
+            Gait::Crawl {
+                step_length,
+                swing_height,
+                cycle_period,
+                margin,
+                ..
+            } => {
+                let params = CrawlParams {
+                    step_length,
+                    swing_height,
+                    cycle_period,
+                    margin,
+                };
+                plan.crawl_with_real_com(&setup, &params, &mut scratch)?;
+            }
+        }
+        Ok(plan)
+    }
+
+    /// The static crawl, its base positions corrected until the full model's projected centre
+    /// of mass keeps the margin at every knot of every swing (see the module notes).
+    fn crawl_with_real_com(
+        &mut self,
+        setup: &Setup,
+        params: &CrawlParams,
+        scratch: &mut PlanScratch,
+    ) -> Result<(), PlanError> {
+        let mut extra: Vec<Vec<f64>> = Vec::new();
+        let mut out = self.new_sample();
+        let mut worst = f64::NEG_INFINITY;
+        for round in 1..=CRAWL_ROUNDS {
+            let schedule = gaits::crawl(setup, params, &extra)?;
+            let swings = schedule.swings.clone();
+            self.install(schedule);
+            // A coarse pass of exact solutions steers the correction; the knots are made, and
+            // checked at every one, only once the coarse pass holds.
+            let (need, coarse) =
+                self.com_shortfall(&swings, params.margin, scratch, &mut out, false)?;
+            worst = coarse;
+            if coarse >= 0.0 {
+                self.make_knots(scratch)?;
+                let (need, fine) =
+                    self.com_shortfall(&swings, params.margin, scratch, &mut out, true)?;
+                worst = fine;
+                if fine >= 0.0 {
+                    self.crawl_rounds = round;
+                    self.crawl_widening = extra.iter().flatten().fold(0.0, |m, &x| f64::max(m, x));
+                    return Ok(());
+                }
+                extra = need;
+            } else {
+                extra = need;
+            }
+        }
+        Err(PlanError(format!(
+            "Crawl: the centre of mass could not be kept {} m inside the support polygon with the swinging legs counted (short by {:.2e} m after {CRAWL_ROUNDS} rounds); allowed: a smaller margin",
+            params.margin, -worst
+        )))
+    }
+
+    /// The real (full-model) projected centre of mass during every swing, at the knots or, for
+    /// the coarse pass, at exact solutions no more than [`CRAWL_CHECK_SPACING`] apart. Returns
+    /// per swing and support edge the margin widening that the approximate centre of mass needs
+    /// for the real one to keep the margin (plus [`CRAWL_SAFETY`]), and the smallest slack of
+    /// the real one over the margin.
+    fn com_shortfall(
+        &self,
+        swings: &[CrawlSwing],
+        margin: f64,
+        scratch: &mut PlanScratch,
+        out: &mut PlanSample,
+        at_knots: bool,
+    ) -> Result<(Vec<Vec<f64>>, f64), PlanError> {
+        let mut needs = Vec::with_capacity(swings.len());
+        let mut worst = f64::INFINITY;
+        self.seed_nominal(out);
+        for swing in swings {
+            let mut need = vec![f64::NEG_INFINITY; swing.support.edges.len()];
+            let mut account = |com: P2| {
+                let shortfall = com - swing.target;
+                for (e, (normal, _)) in swing.support.edges.iter().enumerate() {
+                    need[e] = need[e].max(-normal.dot(&shortfall) + CRAWL_SAFETY);
+                }
+                worst = worst.min(swing.support.margin_of(&com) - margin);
+            };
+            if at_knots {
+                let first = self.knot_t.partition_point(|&t| t < swing.t0);
+                for &t in self.knot_t[first..].iter().take_while(|&&t| t <= swing.t1) {
+                    self.sample(t, out);
+                    forward_kinematics(&self.model, &mut scratch.ws, &out.q);
+                    account(self.project(&center_of_mass(&self.model, &scratch.ws)));
+                }
+            } else {
+                let m = ((swing.t1 - swing.t0) / CRAWL_CHECK_SPACING)
+                    .ceil()
+                    .max(1.0) as usize;
+                for i in 0..=m {
+                    let t = swing.t0 + (swing.t1 - swing.t0) * i as f64 / m as f64;
+                    // The previous solution seeds the numeric legs; the workspace is left at
+                    // the solved configuration.
+                    self.evaluate_exact(t, scratch, out)?;
+                    account(self.project(&center_of_mass(&self.model, &scratch.ws)));
+                }
+            }
+            needs.push(need);
+        }
+        Ok((needs, worst))
+    }
+
+    fn install(&mut self, s: Schedule) {
+        self.base = s.base;
+        self.feet = s.feet;
+        self.phase_starts = s.phases.iter().map(|p| p.0).collect();
+        self.phase_stance = s.phases.into_iter().map(|p| p.1).collect();
+        self.cycles = s.cycles;
+        let mut b: Vec<f64> = vec![0.0, self.duration];
+        for p in self.base.iter().chain(self.feet.iter().flatten()) {
+            b.push(p.t0);
+            b.push(p.t1);
+        }
+        b.extend(self.phase_starts.iter().copied());
+        b.retain(|t| (0.0..=self.duration).contains(t));
+        b.sort_by(f64::total_cmp);
+        b.dedup_by(|a, b| (*a - *b).abs() < 1e-9);
+        if let Some(last) = b.last_mut() {
+            *last = self.duration;
+        }
+        self.breakpoints = b;
+        self.knot_t.clear();
+    }
+
+    /// Exact solutions at knots: every breakpoint, and between breakpoints no more than
+    /// [`KNOT_SPACING`] apart wherever something moves.
+    fn make_knots(&mut self, scratch: &mut PlanScratch) -> Result<(), PlanError> {
+        let mut times = Vec::new();
+        for w in self.breakpoints.windows(2) {
+            let (b0, b1) = (w[0], w[1]);
+            let mid = 0.5 * (b0 + b1);
+            let still = self.base[piece_at(&self.base, mid)].is_constant()
+                && self.feet.iter().all(|f| f[piece_at(f, mid)].is_constant());
+            let m = if still {
+                1
+            } else {
+                ((b1 - b0) / KNOT_SPACING).ceil().max(1.0) as usize
+            };
+            times.extend((0..m).map(|i| b0 + (b1 - b0) * i as f64 / m as f64));
+        }
+        times.push(self.duration);
+        let nj = self.model.n_joints();
+        let mut q = Vec::with_capacity(times.len() * nj);
+        let mut v = Vec::with_capacity(times.len() * nj);
+        let mut a = Vec::with_capacity(times.len() * nj);
+        let mut out = self.new_sample();
+        self.seed_nominal(&mut out);
+        for (k, &t) in times.iter().enumerate() {
+            // The previous knot's angles seed the numeric legs, keeping one branch throughout.
+            self.evaluate_exact(t, scratch, &mut out)?;
+            if k > 0 {
+                self.check_same_branch(
+                    times[k - 1],
+                    t,
+                    &q[(k - 1) * nj..],
+                    &v[(k - 1) * nj..],
+                    &out,
+                )?;
+            }
+            q.extend(out.q.iter().skip(7));
+            v.extend(out.v.iter().skip(6));
+            a.extend(out.a.iter().skip(6));
+        }
+        self.knot_t = times;
+        self.knot_q = q;
+        self.knot_v = v;
+        self.knot_a = a;
+        Ok(())
+    }
+
+    /// Consecutive knots must lie on one smooth joint path: the trapezoid rule
+    /// q₁ ≈ q₀ + h (q̇₀ + q̇₁)/2 holds to h³ max|q⃛|/12 (≪ 1e-3 rad at 1 ms), while a jump to
+    /// another inverse-kinematics branch moves a joint by a sizeable angle at once.
+    fn check_same_branch(
+        &self,
+        t0: f64,
+        t1: f64,
+        q0: &[f64],
+        v0: &[f64],
+        out: &PlanSample,
+    ) -> Result<(), PlanError> {
+        let h = t1 - t0;
+        for i in 0..self.legs.len() {
+            for &k in &self.legs.leg(i).joints() {
+                let predicted = q0[k] + 0.5 * h * (v0[k] + out.v[6 + k]);
+                if (out.q[7 + k] - predicted).abs() > 1e-3 {
+                    return Err(PlanError(format!(
+                        "foot '{}' between t = {t0:.4} s and {t1:.4} s: joint '{}' jumps from {:.4} to {:.4} rad (the leg's inverse kinematics changes branch); allowed: targets that keep the leg on one side of its stretched or folded posture",
+                        self.legs.leg(i).foot(),
+                        self.model.joints[k].name,
+                        q0[k],
+                        out.q[7 + k]
+                    )));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    fn seed_nominal(&self, out: &mut PlanSample) {
+        for (k, &x) in self.joint_nominal.iter().enumerate() {
+            out.q[7 + k] = x;
+        }
+    }
+
+    /// Plane coordinates of a world point projected along gravity onto the ground plane.
+    fn project(&self, p: &Vec3) -> P2 {
+        let s = self.ground.local(p);
+        let g = &self.gravity_local;
+        P2::new(s.x - s.z * g.x / g.z, s.y - s.z * g.y / g.z)
+    }
+
+    /// A sample with every buffer sized (allocates once).
+    pub fn new_sample(&self) -> PlanSample {
+        let n = self.legs.len();
+        PlanSample {
+            q: self.model.neutral(),
+            v: DVector::zeros(self.model.nv()),
+            a: DVector::zeros(self.model.nv()),
+            stance: vec![true; n],
+            foot_pos: vec![Vec3::zeros(); n],
+            foot_vel: vec![Vec3::zeros(); n],
+            foot_acc: vec![Vec3::zeros(); n],
+            base_pos: Vec3::zeros(),
+            phase_index: 0,
+        }
+    }
+
+    /// Buffers for [`Plan::evaluate`].
+    pub fn new_scratch(&self) -> PlanScratch {
+        PlanScratch {
+            ws: Workspace::new(&self.model),
+            jac: DMatrix::zeros(3, self.model.nv()),
+            ik: self.legs.new_scratch(&self.model),
+            legs: vec![(Mat3::zeros(), Vec3::zeros()); self.legs.len()],
+        }
+    }
+
+    /// The plan at time `t` (clamped to [0, duration]): base and feet analytic, joints
+    /// interpolated between the knots. Allocates nothing.
+    pub fn sample(&self, t: f64, out: &mut PlanSample) {
+        let t = self.clamp_time(t);
+        self.base_and_feet(t, out);
+        self.joints_from_knots(t, out);
+    }
+
+    /// The exact plan at time `t`: inverse kinematics and the Jacobian solves done at `t`
+    /// itself, as at a knot (for checks; `sample` is the fast path).
+    pub fn evaluate(
+        &self,
+        t: f64,
+        scratch: &mut PlanScratch,
+        out: &mut PlanSample,
+    ) -> Result<(), PlanError> {
+        let t = self.clamp_time(t);
+        // The interpolated angles seed the numeric legs.
+        self.joints_from_knots(t, out);
+        self.evaluate_exact(t, scratch, out)
+    }
+
+    fn clamp_time(&self, t: f64) -> f64 {
+        if t.is_nan() {
+            0.0
+        } else {
+            t.clamp(0.0, self.duration)
+        }
+    }
+
+    fn base_and_feet(&self, t: f64, out: &mut PlanSample) {
+        let (p, pd, pdd) = self.base[piece_at(&self.base, t)].eval(t);
+        let rt = self.ground.rot.transpose();
+        // The trunk does not turn (ω = 0), so its body-frame velocity is Rᵀ ṗ and the
+        // derivative of that is Rᵀ p̈.
+        let (vb, ab) = (rt * pd, rt * pdd);
+        for k in 0..3 {
+            out.q[k] = p[k];
+            out.v[k] = vb[k];
+            out.a[k] = ab[k];
+            out.v[3 + k] = 0.0;
+            out.a[3 + k] = 0.0;
+        }
+        for k in 0..4 {
+            out.q[3 + k] = self.base_quat[k];
+        }
+        out.base_pos = p;
+        for (i, foot) in self.feet.iter().enumerate() {
+            let (fp, fv, fa) = foot[piece_at(foot, t)].eval(t);
+            out.foot_pos[i] = fp;
+            out.foot_vel[i] = fv;
+            out.foot_acc[i] = fa;
+        }
+        let phase = self
+            .phase_starts
+            .partition_point(|&s| s <= t)
+            .saturating_sub(1);
+        out.phase_index = phase;
+        out.stance.copy_from_slice(&self.phase_stance[phase]);
+    }
+
+    fn joints_from_knots(&self, t: f64, out: &mut PlanSample) {
+        let nj = self.model.n_joints();
+        let n = self.knot_t.len();
+        if n == 0 {
+            return;
+        }
+        let k = self.knot_t.partition_point(|&x| x <= t).saturating_sub(1);
+        let copy = |k: usize, out: &mut PlanSample| {
+            for j in 0..nj {
+                out.q[7 + j] = self.knot_q[k * nj + j];
+                out.v[6 + j] = self.knot_v[k * nj + j];
+                out.a[6 + j] = self.knot_a[k * nj + j];
+            }
+        };
+        if k + 1 >= n || t == self.knot_t[k] {
+            copy(k.min(n - 1), out);
+            return;
+        }
+        let h = self.knot_t[k + 1] - self.knot_t[k];
+        let u = (t - self.knot_t[k]) / h;
+        let basis = quintic_hermite(u);
+        let (i0, i1) = (k * nj, (k + 1) * nj);
+        for j in 0..nj {
+            let w = [
+                self.knot_q[i0 + j],
+                h * self.knot_v[i0 + j],
+                h * h * self.knot_a[i0 + j],
+                h * h * self.knot_a[i1 + j],
+                h * self.knot_v[i1 + j],
+                self.knot_q[i1 + j],
+            ];
+            let dot = |r: usize| -> f64 { (0..6).map(|i| basis[r][i] * w[i]).sum() };
+            out.q[7 + j] = dot(0);
+            out.v[6 + j] = dot(1) / h;
+            out.a[6 + j] = dot(2) / (h * h);
+        }
+    }
+
+    /// Base and feet at `t`, then the legs' angles, rates and accelerations by inverse
+    /// kinematics and the Jacobian. The joint angles in `out.q` on entry seed the numeric legs.
+    fn evaluate_exact(
+        &self,
+        t: f64,
+        scratch: &mut PlanScratch,
+        out: &mut PlanSample,
+    ) -> Result<(), PlanError> {
+        self.base_and_feet(t, out);
+        let rt = self.ground.rot.transpose();
+        let model = &self.model;
+        let at = |i: usize, e: String| {
+            PlanError(format!(
+                "foot '{}' at t = {t:.4} s: {e}",
+                self.legs.leg(i).foot()
+            ))
+        };
+        for &k in &self.free_joints {
+            out.q[7 + k] = self.joint_nominal[k];
+            out.v[6 + k] = 0.0;
+            out.a[6 + k] = 0.0;
+        }
+        for i in 0..self.legs.len() {
+            let leg = self.legs.leg(i);
+            let joints = leg.joints();
+            let target = rt * (out.foot_pos[i] - out.base_pos);
+            let seed = joints.map(|k| out.q[7 + k]);
+            let q = self
+                .legs
+                .solve(model, i, &target, &seed, &mut scratch.ik)
+                .map_err(|e| at(i, e))?;
+            for k in 0..3 {
+                out.q[7 + joints[k]] = q[k];
+            }
+        }
+        let ws = &mut scratch.ws;
+        forward_kinematics(model, ws, &out.q);
+        // Rates: J_leg q̇_leg = ṗ − J_base v_base (the other legs' columns are zero in this
+        // foot's rows).
+        for i in 0..self.legs.len() {
+            let leg = self.legs.leg(i);
+            let found = frame_pose(model, ws, leg.frame()).trans;
+            if (found - out.foot_pos[i]).norm() > FOOT_CHECK {
+                return Err(at(
+                    i,
+                    format!(
+                        "the leg's joint solution misses the planned foot by {:.2e} m",
+                        (found - out.foot_pos[i]).norm()
+                    ),
+                ));
+            }
+            frame_jacobian(model, ws, leg.frame(), &mut scratch.jac, 0, false);
+            let cols = leg.joints().map(|k| 6 + k);
+            let j_leg = Mat3::from_fn(|r, c| scratch.jac[(r, cols[c])]);
+            let mut base_v = Vec3::zeros();
+            let mut base_a = Vec3::zeros();
+            for r in 0..3 {
+                for c in 0..6 {
+                    base_v[r] += scratch.jac[(r, c)] * out.v[c];
+                    base_a[r] += scratch.jac[(r, c)] * out.a[c];
+                }
+            }
+            // Conditioning by Hadamard's ratio |det J| / Π |columns| (1 for orthogonal
+            // columns, 0 when singular): cheaper than singular values on every knot.
+            let columns: f64 = (0..3).map(|c| j_leg.column(c).norm()).product();
+            let det = j_leg.determinant();
+            let inverse = match j_leg.try_inverse() {
+                Some(inv) if det.abs() > SINGULAR_RATIO * columns => inv,
+                _ => {
+                    return Err(at(
+                        i,
+                        format!(
+                            "the leg is singular (|det J| / Π|columns of J| = {:.1e}); allowed: targets away from a stretched or folded leg",
+                            det.abs() / columns
+                        ),
+                    ));
+                }
+            };
+            let qd = inverse * (out.foot_vel[i] - base_v);
+            for k in 0..3 {
+                out.v[cols[k]] = qd[k];
+            }
+            scratch.legs[i] = (inverse, out.foot_acc[i] - base_a);
+        }
+        // Accelerations: J_leg q̈_leg = p̈ − J_base v̇_base − J̇ v, J̇ v with the full v.
+        velocities_and_bias(model, ws, &out.v);
+        for i in 0..self.legs.len() {
+            let leg = self.legs.leg(i);
+            let bias = frame_bias_acceleration(model, ws, leg.frame());
+            let (inverse, partial) = scratch.legs[i];
+            let qdd = inverse * (partial - bias);
+            for k in 0..3 {
+                out.a[6 + leg.joints()[k]] = qdd[k];
+            }
+        }
+        Ok(())
+    }
+
+    /// q and v at t = 0: the robot standing on the terrain, feet touching it.
+    pub fn initial_state(&self) -> (DVector<f64>, DVector<f64>) {
+        let mut s = self.new_sample();
+        self.sample(0.0, &mut s);
+        (s.q, s.v)
+    }
+
+    pub fn duration(&self) -> f64 {
+        self.duration
+    }
+
+    /// Distance along the slope (uphill) the base is planned to make over the duration.
+    pub fn planned_progress(&self) -> f64 {
+        let p0 = self.base[0].eval(0.0).0;
+        let last = &self.base[self.base.len() - 1];
+        let p1 = last.eval(self.duration).0;
+        (p1 - p0).dot(&self.ground.rot.column(0))
+    }
+
+    /// Whole gait cycles in the plan (crawl: each foot stepped `cycles` times and the base made
+    /// cycles × step_length; trot: the base made (cycles − 1) × step_length, the first and last
+    /// cycle ramping the speed; 0 for standing and weight shifting).
+    pub fn cycles(&self) -> usize {
+        self.cycles
+    }
+
+    /// Crawl only: how many rounds the centre-of-mass correction took (1: the approximation
+    /// already kept the margin) and the largest widening of a support edge it applied, m.
+    pub fn crawl_correction(&self) -> (usize, f64) {
+        (self.crawl_rounds, self.crawl_widening)
+    }
+
+    /// Start times of the stance phases (the first is 0).
+    pub fn phase_starts(&self) -> &[f64] {
+        &self.phase_starts
+    }
+
+    /// Times where a base or foot piece or the stance set changes: the plan is analytic
+    /// between them and has continuous acceleration across them.
+    pub fn breakpoints(&self) -> &[f64] {
+        &self.breakpoints
+    }
+
+    /// Times of the joint knots.
+    pub fn knot_times(&self) -> &[f64] {
+        &self.knot_t
+    }
+
+    pub fn legs(&self) -> &Legs {
+        &self.legs
+    }
+
+    pub fn model(&self) -> &Model {
+        &self.model
+    }
+
+    /// The ground plane the plan is laid out in: origin and axes (uphill, left, normal) as the
+    /// columns of the rotation; the trunk's orientation.
+    pub fn ground_frame(&self) -> Pose {
+        Pose::new(self.ground.rot, self.ground.origin)
+    }
+}
+
+/// The crawl order (one foot at a time: right side hind to fore, then left side hind to fore;
+/// for four feet hind-right, fore-right, hind-left, fore-left) and the trot groups (alternate
+/// along each side from the front, opposite on the two sides: diagonal pairs on four feet,
+/// tripods on six). Sides by the sign of the nominal y.
+fn foot_order(footprint: &[P2]) -> (Vec<usize>, Vec<usize>) {
+    let side = |left: bool| {
+        let mut s: Vec<usize> = (0..footprint.len())
+            .filter(|&i| (footprint[i].y >= 0.0) == left)
+            .collect();
+        s.sort_by(|&a, &b| footprint[a].x.total_cmp(&footprint[b].x));
+        s
+    };
+    let (right, left) = (side(false), side(true));
+    let order: Vec<usize> = right.iter().chain(left.iter()).copied().collect();
+    let mut group = vec![0; footprint.len()];
+    for (i, &f) in left.iter().rev().enumerate() {
+        group[f] = i % 2;
+    }
+    for (i, &f) in right.iter().rev().enumerate() {
+        group[f] = (i + 1) % 2;
+    }
+    (order, group)
+}
+
+#[cfg(test)]
+mod tests;
