@@ -1,2 +1,16 @@
-pub use gripsweep_controllers;
+//! gripsweep: the harness that runs control laws against a physics plant and reduces the runs
+//! to evidence. `main.rs` is a thin shell over this library.
+
+pub mod cell;
 pub mod cli_robot;
+pub mod cli_run;
+pub mod matrix;
+pub mod metrics;
+pub mod planner;
+pub mod plant;
+pub mod report;
+pub mod robot;
+pub mod runner;
+pub mod scenario;
+
+pub use gripsweep_controllers as controllers;

@@ -3,6 +3,7 @@
 
 use clap::{Parser, Subcommand};
 use gripsweep::cli_robot::{self, CliError, RobotArgs};
+use gripsweep::cli_run::{self, CheckArgs, MergeArgs, ReportArgs, RunArgs, TraceArgs};
 use std::io::Write;
 use std::process::ExitCode;
 
@@ -17,6 +18,17 @@ struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Run a scenario matrix (default: the embedded default scenario) and write cells.csv,
+    /// manifest.json, summary.md/.csv and plots/ into the output folder.
+    Run(RunArgs),
+    /// Validate a scenario without running it; print the cell count and an estimated run time.
+    Check(CheckArgs),
+    /// Run one cell chosen by its axis values and write its time series as CSV.
+    Trace(TraceArgs),
+    /// Rebuild summary.md, summary.csv and plots/ of a run folder from its cells.csv.
+    Report(ReportArgs),
+    /// Join the folders of a sharded run into the result an unsharded run gives.
+    Merge(MergeArgs),
     /// Load a robot (facts TOML + URDF, a bare URDF, or the embedded demo quadruped) and report
     /// its model: coordinates, bodies, joints with limits, mass, centre of mass, feet; with
     /// --state, the dynamics terms at one state as JSON.
@@ -26,7 +38,14 @@ enum Command {
 fn main() -> ExitCode {
     let cli = Cli::parse();
     let outcome = match &cli.command {
-        Command::Robot(args) => cli_robot::run(args),
+        Command::Robot(args) => {
+            cli_robot::run(args).map_err(|CliError(m)| (m, CliError::EXIT_CODE))
+        }
+        Command::Run(a) => cli_run::cmd_run(a).map_err(into_cli),
+        Command::Check(a) => cli_run::cmd_check(a).map_err(into_cli),
+        Command::Trace(a) => cli_run::cmd_trace(a).map_err(into_cli),
+        Command::Report(a) => cli_run::cmd_report(a).map_err(into_cli),
+        Command::Merge(a) => cli_run::cmd_merge(a).map_err(into_cli),
     };
     match outcome {
         Ok(text) => {
@@ -41,9 +60,13 @@ fn main() -> ExitCode {
                 }
             }
         }
-        Err(CliError(msg)) => {
+        Err((msg, code)) => {
             eprintln!("gripsweep: {msg}");
-            ExitCode::from(CliError::EXIT_CODE)
+            ExitCode::from(code)
         }
     }
+}
+
+fn into_cli(e: gripsweep::runner::RunError) -> (String, u8) {
+    (e.message, e.code as u8)
 }

@@ -98,8 +98,11 @@ pub struct LawSettings {
 impl Default for LawSettings {
     fn default() -> Self {
         LawSettings {
-            stiff_kp: 400.0,
-            stiff_kd: 8.0,
+            // The highest gains found stable on the default plant (brindle, 1 ms, 4 substeps,
+            // armature from its facts) at a 1 kHz loop: kd ≥ 60 limit-cycles against the torque
+            // limits; kp up to 120000 stayed stable with kd 40 (see DEVELOPERS.md, "Gains").
+            stiff_kp: 20000.0,
+            stiff_kd: 30.0,
             joint_kp: 30.0,
             joint_kd: 1.0,
             base_kp: 100.0,

@@ -1,0 +1,365 @@
+//! The run-side commands (`run`, `check`, `trace`, `report`, `merge`) as library functions:
+//! flags in, text out, errors with the exit code they deserve.
+
+use crate::cell::{CellContext, TraceRow, run_cell};
+use crate::matrix::{Cell, expand};
+use crate::runner::{RunError, RunOptions, merge, run};
+use crate::scenario::Scenario;
+use clap::Args;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+#[derive(Args, Debug, Clone)]
+pub struct RunArgs {
+    /// Scenario file (TOML). Default: the embedded default scenario (scenarios/default.toml).
+    pub scenario: Option<PathBuf>,
+    /// Output folder. Default: results/<scenario name> (results/<name>-shard-I-of-K with --shard).
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+    /// Worker threads. Default: one per core.
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Run only shard I of K (1-based, e.g. 2/4): the cells whose matrix index is ≡ I−1 mod K.
+    #[arg(long, value_name = "I/K")]
+    pub shard: Option<String>,
+    /// Continue a killed run in the same output folder: finished cells are kept, the rest run.
+    #[arg(long, conflicts_with = "force")]
+    pub resume: bool,
+    /// Replace an existing output folder.
+    #[arg(long)]
+    pub force: bool,
+    /// No progress output.
+    #[arg(long)]
+    pub quiet: bool,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct CheckArgs {
+    /// Scenario file (TOML). Default: the embedded default scenario.
+    pub scenario: Option<PathBuf>,
+    /// Threads assumed for the run-time estimate. Default: one per core.
+    #[arg(long)]
+    pub threads: Option<usize>,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct TraceArgs {
+    /// Scenario file (TOML). Default: the embedded default scenario.
+    pub scenario: Option<PathBuf>,
+    /// Axis values of the cell to trace, e.g. --pick mu=0.4 --pick controller=id-lean; axes not
+    /// given take their first value. Axes: slope_deg, mu, rate_hz, actuator, controller,
+    /// mass_scale, com_shift_mm, sensor_noise, seed.
+    #[arg(long, value_name = "AXIS=VALUE")]
+    pub pick: Vec<String>,
+    /// Output CSV. Default: trace.csv.
+    #[arg(long, default_value = "trace.csv")]
+    pub out: PathBuf,
+    /// Write one row every N physics steps. Default: 10.
+    #[arg(long, default_value_t = 10)]
+    pub every: usize,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct ReportArgs {
+    /// A run folder (with cells.csv and manifest.json).
+    pub dir: PathBuf,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct MergeArgs {
+    /// Shard folders to join.
+    #[arg(required = true)]
+    pub dirs: Vec<PathBuf>,
+    /// Output folder for the joined run.
+    #[arg(long)]
+    pub out: PathBuf,
+    /// Replace an existing output folder.
+    #[arg(long)]
+    pub force: bool,
+}
+
+fn load(path: &Option<PathBuf>) -> Result<Scenario, RunError> {
+    match path {
+        Some(p) => Scenario::from_file(p).map_err(|e| RunError::input(e.0)),
+        None => Scenario::default_embedded().map_err(|e| RunError::input(e.0)),
+    }
+}
+
+/// "I/K" (1-based) → (I−1, K).
+pub fn parse_shard(s: &str) -> Result<(usize, usize), RunError> {
+    let bad = || {
+        RunError::input(format!(
+            "--shard {s}: allowed: I/K with 1 ≤ I ≤ K, e.g. 2/4"
+        ))
+    };
+    let (i, k) = s.split_once('/').ok_or_else(bad)?;
+    let (i, k): (usize, usize) = (
+        i.trim().parse().map_err(|_| bad())?,
+        k.trim().parse().map_err(|_| bad())?,
+    );
+    if k == 0 || i == 0 || i > k {
+        return Err(bad());
+    }
+    Ok((i - 1, k))
+}
+
+fn slug(name: &str) -> String {
+    name.chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
+                c
+            } else {
+                '-'
+            }
+        })
+        .collect()
+}
+
+pub fn cmd_run(a: &RunArgs) -> Result<String, RunError> {
+    let s = load(&a.scenario)?;
+    let shard = a.shard.as_deref().map(parse_shard).transpose()?;
+    let out = a.out.clone().unwrap_or_else(|| {
+        let base = PathBuf::from("results");
+        match shard {
+            Some((i, k)) => base.join(format!("{}-shard-{}-of-{k}", slug(&s.name), i + 1)),
+            None => base.join(slug(&s.name)),
+        }
+    });
+    if a.threads == Some(0) {
+        return Err(RunError::input("--threads 0: allowed: 1 or more"));
+    }
+    let opts = RunOptions {
+        out: out.clone(),
+        threads: a.threads,
+        shard,
+        resume: a.resume,
+        force: a.force,
+        quiet: a.quiet,
+        no_report: false,
+    };
+    let sum = run(&s, &opts)?;
+    Ok(format!(
+        "{}: {} cells ({} run now, {} kept from before), {} not ok; slip floor {:.3} mm; {:.1} s\nresults in {}\n",
+        s.name,
+        sum.cells_total,
+        sum.cells_run,
+        sum.cells_skipped,
+        sum.failures,
+        sum.slip_floor_mm,
+        sum.wall_s,
+        out.display()
+    ))
+}
+
+pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
+    let s = load(&a.scenario)?;
+    let robot = s.load_robot().map_err(RunError::input)?;
+    s.check_plans(&robot).map_err(|e| RunError::input(e.0))?;
+    let cells = expand(&s);
+    // Estimate: simulate a short stretch of the first cell of each controller and scale.
+    let threads = a.threads.unwrap_or_else(rayon::current_num_threads).max(1);
+    let probe = 0.5f64.min(s.duration);
+    let mut short = s.clone();
+    short.duration = probe;
+    let mut per_controller = Vec::new();
+    for c in &s.axes.controller {
+        let cell = cells
+            .iter()
+            .find(|x| &x.controller == c)
+            .expect("every controller has cells");
+        let t0 = Instant::now();
+        run_cell(
+            &CellContext {
+                scenario: &short,
+                robot: &robot,
+            },
+            cell,
+            None,
+        );
+        per_controller.push((c.clone(), t0.elapsed().as_secs_f64() / probe));
+    }
+    let total_s: f64 = cells
+        .iter()
+        .map(|c| {
+            per_controller
+                .iter()
+                .find(|(n, _)| *n == c.controller)
+                .map(|x| x.1)
+                .unwrap_or(0.0)
+                * s.duration
+        })
+        .sum::<f64>()
+        / threads as f64;
+    let mut text = format!(
+        "{}: valid.\n{} cells ({} slopes × {} μ × {} rates × {} actuators × {} controllers × {} mass scales × {} CoM shifts × {} noise levels × {} seeds), {} s each.\n",
+        s.source,
+        cells.len(),
+        s.axes.slope_deg.len(),
+        s.axes.mu.len(),
+        s.axes.rate_hz.len(),
+        s.axes.actuator.len(),
+        s.axes.controller.len(),
+        s.axes.mass_scale.len(),
+        s.axes.com_shift_mm.len(),
+        s.axes.sensor_noise.len(),
+        s.seeds,
+        s.duration
+    );
+    text.push_str(&format!("Estimated run time on {threads} thread(s): {:.0} s ({:.1} min), from a {probe} s probe per controller:\n", total_s, total_s / 60.0));
+    for (c, w) in per_controller {
+        text.push_str(&format!(
+            "  {c}: {:.3} s of wall time per simulated second\n",
+            w
+        ));
+    }
+    Ok(text)
+}
+
+/// The cell of the scenario matching `picks` (AXIS=VALUE); unspecified axes: first value.
+pub fn pick_cell(s: &Scenario, picks: &[String]) -> Result<Cell, RunError> {
+    let mut want: Vec<(String, String)> = Vec::new();
+    const AXES: [&str; 9] = [
+        "slope_deg",
+        "mu",
+        "rate_hz",
+        "actuator",
+        "controller",
+        "mass_scale",
+        "com_shift_mm",
+        "sensor_noise",
+        "seed",
+    ];
+    for p in picks {
+        let Some((k, v)) = p.split_once('=') else {
+            return Err(RunError::input(format!(
+                "--pick {p}: allowed: AXIS=VALUE with AXIS one of {}",
+                AXES.join(", ")
+            )));
+        };
+        if !AXES.contains(&k.trim()) {
+            return Err(RunError::input(format!(
+                "--pick {p}: unknown axis '{}'; allowed: {}",
+                k.trim(),
+                AXES.join(", ")
+            )));
+        }
+        want.push((k.trim().to_string(), v.trim().to_string()));
+    }
+    let matches = |c: &Cell| {
+        want.iter().all(|(k, v)| {
+            let num = |x: f64| v.parse::<f64>().is_ok_and(|w| (w - x).abs() < 1e-9);
+            match k.as_str() {
+                "slope_deg" => num(c.slope_deg),
+                "mu" => num(c.mu),
+                "rate_hz" => num(c.rate_hz),
+                "actuator" => c.actuator.name() == v,
+                "controller" => c.controller == *v,
+                "mass_scale" => num(c.mass_scale),
+                "com_shift_mm" => num(c.com_shift_mm),
+                "sensor_noise" => num(c.sensor_noise),
+                _ => v.parse::<u32>().is_ok_and(|w| w == c.seed),
+            }
+        })
+    };
+    expand(s).into_iter().find(|c| matches(c)).ok_or_else(|| {
+        RunError::input(format!(
+            "--pick {}: no cell of {} has these axis values (see `gripsweep check`)",
+            picks.join(" --pick "),
+            s.source
+        ))
+    })
+}
+
+pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
+    let s = load(&a.scenario)?;
+    if a.every == 0 {
+        return Err(RunError::input("--every 0: allowed: 1 or more"));
+    }
+    let robot = s.load_robot().map_err(RunError::input)?;
+    let cell = pick_cell(&s, &a.pick)?;
+    let mut rows: Vec<TraceRow> = Vec::new();
+    let out = run_cell(
+        &CellContext {
+            scenario: &s,
+            robot: &robot,
+        },
+        &cell,
+        Some((&mut rows, a.every)),
+    );
+    write_trace(&a.out, &robot, &rows, out.status.name()).map_err(RunError::other)?;
+    Ok(format!(
+        "cell {} ({}): {}{}; {} rows in {}\n",
+        cell.id(),
+        cell.key(),
+        out.status.name(),
+        if out.message.is_empty() {
+            String::new()
+        } else {
+            format!(" ({})", out.message)
+        },
+        rows.len(),
+        a.out.display()
+    ))
+}
+
+fn write_trace(
+    path: &Path,
+    robot: &crate::robot::LoadedRobot,
+    rows: &[TraceRow],
+    status: &str,
+) -> Result<(), String> {
+    let mut head: Vec<String> = [
+        "t_s", "base_x_m", "base_y_m", "base_z_m", "base_qx", "base_qy", "base_qz", "base_qw",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    let joints = robot.model.joint_names();
+    head.extend(joints.iter().map(|j| format!("{j}_rad")));
+    head.extend(joints.iter().map(|j| format!("{j}_torque_nm")));
+    for f in &robot.facts.feet.frames {
+        for c in ["stance", "fn_n", "ft1_n", "ft2_n", "slip_speed_mm_s"] {
+            head.push(format!("{f}_{c}"));
+        }
+    }
+    head.push("law_status".into());
+    head.push("cell_status".into());
+    let mut w = csv::Writer::from_path(path).map_err(|e| format!("{}: {e}", path.display()))?;
+    w.write_record(&head)
+        .map_err(|e| format!("{}: {e}", path.display()))?;
+    for r in rows {
+        let mut rec: Vec<String> = vec![format!("{}", r.t)];
+        rec.extend(r.q.iter().map(|x| format!("{x}")));
+        rec.extend(r.tau.iter().map(|x| format!("{x}")));
+        for i in 0..r.foot_force.len() {
+            rec.push(if r.stance[i] { "1".into() } else { "0".into() });
+            rec.extend(r.foot_force[i].iter().map(|x| format!("{x}")));
+            rec.push(format!("{}", r.foot_slip[i] * 1e3));
+        }
+        rec.push(r.law_status.to_string());
+        rec.push(status.to_string());
+        w.write_record(&rec)
+            .map_err(|e| format!("{}: {e}", path.display()))?;
+    }
+    w.flush().map_err(|e| format!("{}: {e}", path.display()))
+}
+
+pub fn cmd_report(a: &ReportArgs) -> Result<String, RunError> {
+    if !a.dir.join(crate::runner::CELLS_FILE).is_file() {
+        return Err(RunError::input(format!(
+            "{}: no cells.csv here; give a run folder",
+            a.dir.display()
+        )));
+    }
+    crate::runner::write_report(&a.dir).map_err(RunError::input)?;
+    Ok(format!("report written in {}\n", a.dir.display()))
+}
+
+pub fn cmd_merge(a: &MergeArgs) -> Result<String, RunError> {
+    let n = merge(&a.dirs, &a.out, a.force, false)?;
+    Ok(format!(
+        "{n} cells joined from {} shards into {}\n",
+        a.dirs.len(),
+        a.out.display()
+    ))
+}

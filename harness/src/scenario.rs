@@ -1,0 +1,684 @@
+//! The scenario file (TOML): which robot, which gait, how long, the plant settings, the law
+//! settings, and the axes of the matrix. Parsed with serde (unknown fields rejected with the
+//! allowed names), then validated field by field before anything runs; every message names the
+//! file and the field. The default scenario is compiled into the binary.
+
+use crate::planner::Gait;
+use crate::plant::PlantSettings;
+use crate::plant::actuator::ActuatorKind;
+use crate::robot::LoadedRobot;
+use gripsweep_controllers::laws::{LawSettings, law_names};
+use serde::Deserialize;
+use std::path::{Path, PathBuf};
+
+/// The default scenario's text, embedded so `gripsweep run` works with no argument.
+pub const DEFAULT_SCENARIO: &str = include_str!("../../scenarios/default.toml");
+pub const DEFAULT_SCENARIO_NAME: &str = "scenarios/default.toml";
+
+#[derive(Clone, Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ScenarioFile {
+    /// A short name for reports.
+    pub name: String,
+    /// Robot facts TOML, relative to the scenario file (`"embedded:brindle"`: the demo robot
+    /// compiled into the binary).
+    #[serde(default = "default_robot")]
+    pub robot: String,
+    /// Simulated seconds per cell.
+    #[serde(default = "default_duration")]
+    pub duration: f64,
+    /// Seeds per axis combination (noise and initial-posture jitter differ per seed).
+    #[serde(default = "default_seeds")]
+    pub seeds: u32,
+    #[serde(default)]
+    pub gait: GaitFile,
+    #[serde(default)]
+    pub plant: PlantFile,
+    #[serde(default)]
+    pub laws: LawsFile,
+    #[serde(default)]
+    pub axes: AxesFile,
+    #[serde(default)]
+    pub noise: NoiseFile,
+    #[serde(default)]
+    pub falls: FallsFile,
+    #[serde(default)]
+    pub onset: Option<OnsetFile>,
+}
+
+fn default_robot() -> String {
+    "embedded:brindle".into()
+}
+fn default_duration() -> f64 {
+    8.0
+}
+fn default_seeds() -> u32 {
+    1
+}
+
+#[derive(Clone, Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GaitFile {
+    /// `stand`, `crawl`, `weight-shift` or `trot`.
+    #[serde(default = "default_gait_kind")]
+    pub kind: String,
+    pub step_length: Option<f64>,
+    pub swing_height: Option<f64>,
+    pub cycle_period: Option<f64>,
+    pub body_height: Option<f64>,
+    pub margin: Option<f64>,
+    pub amplitude: Option<f64>,
+    pub period: Option<f64>,
+}
+
+fn default_gait_kind() -> String {
+    "crawl".into()
+}
+
+impl Default for GaitFile {
+    fn default() -> Self {
+        GaitFile {
+            kind: default_gait_kind(),
+            step_length: None,
+            swing_height: None,
+            cycle_period: None,
+            body_height: None,
+            margin: None,
+            amplitude: None,
+            period: None,
+        }
+    }
+}
+
+#[derive(Clone, Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PlantFile {
+    pub dt: Option<f64>,
+    pub substeps: Option<usize>,
+    pub contact_hz: Option<f64>,
+    pub contact_damping: Option<f64>,
+    pub joint_limits: Option<bool>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LawsFile {
+    /// The controllers believe μ̂ = scale × the cell's μ.
+    pub mu_estimate_scale: Option<f64>,
+    pub stiff_kp: Option<f64>,
+    pub stiff_kd: Option<f64>,
+    pub joint_kp: Option<f64>,
+    pub joint_kd: Option<f64>,
+    pub task_kp: Option<f64>,
+    pub task_kd: Option<f64>,
+    pub tangent_weight: Option<f64>,
+    pub normal_weight: Option<f64>,
+    pub torque_weight: Option<f64>,
+    pub cone_margin: Option<f64>,
+    pub min_normal_force: Option<f64>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AxesFile {
+    pub slope_deg: Option<Vec<f64>>,
+    pub mu: Option<Vec<f64>>,
+    pub rate_hz: Option<Vec<f64>>,
+    pub actuator: Option<Vec<String>>,
+    pub controller: Option<Vec<String>>,
+    pub mass_scale: Option<Vec<f64>>,
+    pub com_shift_mm: Option<Vec<f64>>,
+    pub sensor_noise: Option<Vec<f64>>,
+}
+
+/// Sensor noise standard deviations at `sensor_noise = 1` (scaled by the axis value), and the
+/// observation delay.
+#[derive(Clone, Debug, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct NoiseFile {
+    pub joint_angle: f64,
+    pub joint_rate: f64,
+    pub base_position: f64,
+    pub base_orientation: f64,
+    pub base_linear_velocity: f64,
+    pub base_angular_velocity: f64,
+    /// Observation delay, s (rounded to plant steps).
+    pub delay: f64,
+}
+
+impl Default for NoiseFile {
+    fn default() -> Self {
+        NoiseFile {
+            joint_angle: 1e-3,
+            joint_rate: 0.02,
+            base_position: 2e-3,
+            base_orientation: 5e-3,
+            base_linear_velocity: 0.02,
+            base_angular_velocity: 0.02,
+            delay: 0.0,
+        }
+    }
+}
+
+#[derive(Clone, Debug, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct FallsFile {
+    /// The trunk is down when its height above the ground drops below this share of the
+    /// planned body height.
+    pub min_height_share: f64,
+    /// … or it tilts more than this from the ground normal, degrees.
+    pub max_tilt_deg: f64,
+}
+
+impl Default for FallsFile {
+    fn default() -> Self {
+        FallsFile {
+            min_height_share: 0.5,
+            max_tilt_deg: 45.0,
+        }
+    }
+}
+
+/// The slip-onset study: per group, bisection on the slope angle for the steepest slope held.
+#[derive(Clone, Debug, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct OnsetFile {
+    pub lo_deg: f64,
+    pub hi_deg: f64,
+    /// Bisection steps per group.
+    pub steps: u32,
+    /// Sustained slip: mean stance-phase slip above the floor plus this, mm.
+    pub threshold_mm: f64,
+}
+
+/// A validated scenario, with defaults filled in.
+#[derive(Clone, Debug)]
+pub struct Scenario {
+    pub source: String,
+    pub text: String,
+    pub name: String,
+    pub robot_path: Option<PathBuf>,
+    pub duration: f64,
+    pub seeds: u32,
+    pub gait: Gait,
+    pub body_height: f64,
+    pub plant: PlantSettings,
+    pub laws: LawSettings,
+    pub mu_estimate_scale: f64,
+    pub axes: Axes,
+    pub noise: NoiseFile,
+    pub falls: FallsFile,
+    pub onset: Option<OnsetFile>,
+}
+
+#[derive(Clone, Debug, PartialEq)]
+pub struct Axes {
+    pub slope_deg: Vec<f64>,
+    pub mu: Vec<f64>,
+    pub rate_hz: Vec<f64>,
+    pub actuator: Vec<ActuatorKind>,
+    pub controller: Vec<String>,
+    pub mass_scale: Vec<f64>,
+    pub com_shift_mm: Vec<f64>,
+    pub sensor_noise: Vec<f64>,
+}
+
+/// A scenario problem: message names the file and field.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ScenarioError(pub String);
+
+impl std::fmt::Display for ScenarioError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+
+impl Scenario {
+    /// Read and validate a scenario file.
+    pub fn from_file(path: &Path) -> Result<Scenario, ScenarioError> {
+        let text = std::fs::read_to_string(path).map_err(|e| {
+            ScenarioError(format!(
+                "{}: cannot read the scenario file: {e}",
+                path.display()
+            ))
+        })?;
+        Self::from_text(&path.display().to_string(), &text, path.parent())
+    }
+
+    /// The embedded default scenario.
+    pub fn default_embedded() -> Result<Scenario, ScenarioError> {
+        let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios");
+        Self::from_text(DEFAULT_SCENARIO_NAME, DEFAULT_SCENARIO, Some(&dir))
+    }
+
+    pub fn from_text(
+        source: &str,
+        text: &str,
+        dir: Option<&Path>,
+    ) -> Result<Scenario, ScenarioError> {
+        let file: ScenarioFile = toml::from_str(text)
+            .map_err(|e| ScenarioError(format!("{source}: {}", e.to_string().trim_end())))?;
+        let fail =
+            |field: &str, msg: String| ScenarioError(format!("{source}: field `{field}`: {msg}"));
+        if file.name.trim().is_empty() {
+            return Err(fail("name", "must not be empty".into()));
+        }
+        let robot_path = if file.robot == "embedded:brindle" {
+            None
+        } else {
+            let p = dir.unwrap_or(Path::new(".")).join(&file.robot);
+            if !p.is_file() {
+                return Err(fail(
+                    "robot",
+                    format!(
+                        "robot facts file {} does not exist (a path relative to the scenario file, or \"embedded:brindle\")",
+                        p.display()
+                    ),
+                ));
+            }
+            Some(p)
+        };
+        if !(file.duration.is_finite() && file.duration > 0.0 && file.duration <= 600.0) {
+            return Err(fail(
+                "duration",
+                format!("{} s: allowed: 0 < duration ≤ 600 s", file.duration),
+            ));
+        }
+        if file.seeds == 0 || file.seeds > 1000 {
+            return Err(fail("seeds", format!("{}: allowed: 1 to 1000", file.seeds)));
+        }
+
+        let mut plant = PlantSettings::default();
+        let p = &file.plant;
+        if let Some(dt) = p.dt {
+            if !(dt.is_finite() && dt > 0.0 && dt <= 1e-3) {
+                return Err(fail(
+                    "plant.dt",
+                    format!("{dt} s: allowed: 0 < dt ≤ 0.001 s"),
+                ));
+            }
+            plant.dt = dt;
+        }
+        if let Some(s) = p.substeps {
+            if !(1..=32).contains(&s) {
+                return Err(fail("plant.substeps", format!("{s}: allowed: 1 to 32")));
+            }
+            plant.substeps = s;
+        }
+        if let Some(hz) = p.contact_hz {
+            if !(hz.is_finite() && hz > 0.0) {
+                return Err(fail(
+                    "plant.contact_hz",
+                    format!("{hz}: allowed: a frequency > 0 Hz"),
+                ));
+            }
+            plant.contact_hz = hz;
+        }
+        if let Some(z) = p.contact_damping {
+            if !(z.is_finite() && z > 0.0) {
+                return Err(fail(
+                    "plant.contact_damping",
+                    format!("{z}: allowed: a damping ratio > 0"),
+                ));
+            }
+            plant.contact_damping = z;
+        }
+        if let Some(l) = p.joint_limits {
+            plant.joint_limits = l;
+        }
+
+        let g = &file.gait;
+        let positive = |field: &str, v: Option<f64>, default: f64| -> Result<f64, ScenarioError> {
+            let v = v.unwrap_or(default);
+            if v.is_finite() && v > 0.0 {
+                Ok(v)
+            } else {
+                Err(fail(field, format!("{v}: allowed: a number > 0")))
+            }
+        };
+        let body_height = positive("gait.body_height", g.body_height, 0.30)?;
+        let gait = match g.kind.as_str() {
+            "stand" => Gait::Stand,
+            "crawl" => Gait::Crawl {
+                step_length: positive("gait.step_length", g.step_length, 0.06)?,
+                swing_height: positive("gait.swing_height", g.swing_height, 0.05)?,
+                cycle_period: positive("gait.cycle_period", g.cycle_period, 3.2)?,
+                body_height,
+                margin: positive("gait.margin", g.margin, 0.02)?,
+            },
+            "weight-shift" => Gait::WeightShift {
+                amplitude: positive("gait.amplitude", g.amplitude, 0.03)?,
+                period: positive("gait.period", g.period, 2.0)?,
+                body_height,
+            },
+            "trot" => Gait::Trot {
+                step_length: positive("gait.step_length", g.step_length, 0.06)?,
+                swing_height: positive("gait.swing_height", g.swing_height, 0.05)?,
+                cycle_period: positive("gait.cycle_period", g.cycle_period, 0.6)?,
+                body_height,
+            },
+            other => {
+                return Err(fail(
+                    "gait.kind",
+                    format!("'{other}': allowed: stand, crawl, weight-shift, trot"),
+                ));
+            }
+        };
+
+        let mut laws = LawSettings::default();
+        let l = &file.laws;
+        let mu_estimate_scale = positive("laws.mu_estimate_scale", l.mu_estimate_scale, 1.0)?;
+        let set = |field: &str,
+                   v: Option<f64>,
+                   slot: &mut f64,
+                   allow_zero: bool|
+         -> Result<(), ScenarioError> {
+            if let Some(v) = v {
+                if !(v.is_finite() && (v > 0.0 || (allow_zero && v == 0.0))) {
+                    return Err(fail(
+                        field,
+                        format!(
+                            "{v}: allowed: a number {}",
+                            if allow_zero { "≥ 0" } else { "> 0" }
+                        ),
+                    ));
+                }
+                *slot = v;
+            }
+            Ok(())
+        };
+        set("laws.stiff_kp", l.stiff_kp, &mut laws.stiff_kp, false)?;
+        set("laws.stiff_kd", l.stiff_kd, &mut laws.stiff_kd, true)?;
+        set("laws.joint_kp", l.joint_kp, &mut laws.joint_kp, true)?;
+        set("laws.joint_kd", l.joint_kd, &mut laws.joint_kd, true)?;
+        if let Some(kp) = l.task_kp {
+            let mut v = 0.0;
+            set("laws.task_kp", Some(kp), &mut v, true)?;
+            laws.base_kp = v;
+            laws.orient_kp = v;
+            laws.posture_kp = v;
+        }
+        if let Some(kd) = l.task_kd {
+            let mut v = 0.0;
+            set("laws.task_kd", Some(kd), &mut v, true)?;
+            laws.base_kd = v;
+            laws.orient_kd = v;
+            laws.posture_kd = v;
+        }
+        set(
+            "laws.tangent_weight",
+            l.tangent_weight,
+            &mut laws.tangent_weight,
+            false,
+        )?;
+        set(
+            "laws.normal_weight",
+            l.normal_weight,
+            &mut laws.normal_weight,
+            true,
+        )?;
+        set(
+            "laws.torque_weight",
+            l.torque_weight,
+            &mut laws.torque_weight,
+            false,
+        )?;
+        set(
+            "laws.min_normal_force",
+            l.min_normal_force,
+            &mut laws.min_normal_force,
+            true,
+        )?;
+        if let Some(m) = l.cone_margin {
+            if !(m.is_finite() && (0.0..1.0).contains(&m)) {
+                return Err(fail(
+                    "laws.cone_margin",
+                    format!("{m}: allowed: 0 ≤ margin < 1"),
+                ));
+            }
+            laws.cone_margin = m;
+        }
+
+        let a = &file.axes;
+        let nonempty = |field: &str, len: usize| -> Result<(), ScenarioError> {
+            if len == 0 {
+                Err(fail(field, "the axis is empty; give at least one value or leave the field out for its default".into()))
+            } else {
+                Ok(())
+            }
+        };
+        let numbers = |field: &str,
+                       v: &Option<Vec<f64>>,
+                       default: &[f64],
+                       ok: &dyn Fn(f64) -> bool,
+                       allowed: &str|
+         -> Result<Vec<f64>, ScenarioError> {
+            let v = v.clone().unwrap_or_else(|| default.to_vec());
+            nonempty(field, v.len())?;
+            for (i, x) in v.iter().enumerate() {
+                if !x.is_finite() || !ok(*x) {
+                    return Err(fail(
+                        field,
+                        format!("value {x} (entry {}): allowed: {allowed}", i + 1),
+                    ));
+                }
+            }
+            for (i, x) in v.iter().enumerate() {
+                if v[..i].contains(x) {
+                    return Err(fail(field, format!("value {x} appears twice")));
+                }
+            }
+            Ok(v)
+        };
+        let slope_deg = numbers(
+            "axes.slope_deg",
+            &a.slope_deg,
+            &[0.0],
+            &|x| x.abs() < 60.0,
+            "|slope| < 60°",
+        )?;
+        let mu = numbers(
+            "axes.mu",
+            &a.mu,
+            &[0.6],
+            &|x| x > 0.0 && x <= 5.0,
+            "0 < μ ≤ 5",
+        )?;
+        let plant_rate = 1.0 / plant.dt;
+        let rate_hz = numbers(
+            "axes.rate_hz",
+            &a.rate_hz,
+            &[plant_rate.round()],
+            &|x| {
+                let ratio = plant_rate / x;
+                x >= 1.0 && x <= plant_rate + 1e-9 && (ratio - ratio.round()).abs() < 1e-9
+            },
+            &format!(
+                "a control rate that divides the plant rate {plant_rate} Hz (e.g. 100, 250, 500, 1000)"
+            ),
+        )?;
+        let mass_scale = numbers(
+            "axes.mass_scale",
+            &a.mass_scale,
+            &[1.0],
+            &|x| x > 0.2 && x < 5.0,
+            "0.2 < scale < 5",
+        )?;
+        let com_shift_mm = numbers(
+            "axes.com_shift_mm",
+            &a.com_shift_mm,
+            &[0.0],
+            &|x| x.abs() <= 200.0,
+            "|shift| ≤ 200 mm",
+        )?;
+        let sensor_noise = numbers(
+            "axes.sensor_noise",
+            &a.sensor_noise,
+            &[0.0],
+            &|x| (0.0..=100.0).contains(&x),
+            "0 ≤ level ≤ 100",
+        )?;
+        let actuator_names = a.actuator.clone().unwrap_or_else(|| vec!["ideal".into()]);
+        nonempty("axes.actuator", actuator_names.len())?;
+        let mut actuator = Vec::new();
+        for n in &actuator_names {
+            let Some(k) = ActuatorKind::parse(n) else {
+                let allowed: Vec<&str> = ActuatorKind::ALL.iter().map(|k| k.name()).collect();
+                return Err(fail(
+                    "axes.actuator",
+                    format!("unknown actuator '{n}'; allowed: {}", allowed.join(", ")),
+                ));
+            };
+            if actuator.contains(&k) {
+                return Err(fail("axes.actuator", format!("'{n}' appears twice")));
+            }
+            actuator.push(k);
+        }
+        let controller = a
+            .controller
+            .clone()
+            .unwrap_or_else(|| law_names().iter().map(|s| s.to_string()).collect());
+        nonempty("axes.controller", controller.len())?;
+        for (i, c) in controller.iter().enumerate() {
+            if !law_names().contains(&c.as_str()) {
+                return Err(fail(
+                    "axes.controller",
+                    format!(
+                        "unknown controller '{c}'; allowed: {}",
+                        law_names().join(", ")
+                    ),
+                ));
+            }
+            if controller[..i].contains(c) {
+                return Err(fail("axes.controller", format!("'{c}' appears twice")));
+            }
+        }
+        let n = &file.noise;
+        for (field, v) in [
+            ("noise.joint_angle", n.joint_angle),
+            ("noise.joint_rate", n.joint_rate),
+            ("noise.base_position", n.base_position),
+            ("noise.base_orientation", n.base_orientation),
+            ("noise.base_linear_velocity", n.base_linear_velocity),
+            ("noise.base_angular_velocity", n.base_angular_velocity),
+            ("noise.delay", n.delay),
+        ] {
+            if !(v.is_finite() && v >= 0.0) {
+                return Err(fail(field, format!("{v}: allowed: a number ≥ 0")));
+            }
+        }
+        let f = &file.falls;
+        if !(f.min_height_share.is_finite() && f.min_height_share > 0.0 && f.min_height_share < 1.0)
+        {
+            return Err(fail(
+                "falls.min_height_share",
+                format!("{}: allowed: 0 < share < 1", f.min_height_share),
+            ));
+        }
+        if !(f.max_tilt_deg.is_finite() && f.max_tilt_deg > 0.0 && f.max_tilt_deg <= 90.0) {
+            return Err(fail(
+                "falls.max_tilt_deg",
+                format!("{}: allowed: 0 < tilt ≤ 90", f.max_tilt_deg),
+            ));
+        }
+        if let Some(o) = &file.onset {
+            if !(o.lo_deg.is_finite()
+                && o.hi_deg.is_finite()
+                && 0.0 <= o.lo_deg
+                && o.lo_deg < o.hi_deg
+                && o.hi_deg < 60.0)
+            {
+                return Err(fail(
+                    "onset.lo_deg",
+                    format!(
+                        "[{}, {}]: allowed: 0 ≤ lo_deg < hi_deg < 60",
+                        o.lo_deg, o.hi_deg
+                    ),
+                ));
+            }
+            if !(1..=12).contains(&o.steps) {
+                return Err(fail(
+                    "onset.steps",
+                    format!("{}: allowed: 1 to 12", o.steps),
+                ));
+            }
+            if !(o.threshold_mm.is_finite() && o.threshold_mm > 0.0) {
+                return Err(fail(
+                    "onset.threshold_mm",
+                    format!("{}: allowed: > 0 mm", o.threshold_mm),
+                ));
+            }
+        }
+        Ok(Scenario {
+            source: source.to_string(),
+            text: text.to_string(),
+            name: file.name.clone(),
+            robot_path,
+            duration: file.duration,
+            seeds: file.seeds,
+            gait,
+            body_height,
+            plant,
+            laws,
+            mu_estimate_scale,
+            axes: Axes {
+                slope_deg,
+                mu,
+                rate_hz,
+                actuator,
+                controller,
+                mass_scale,
+                com_shift_mm,
+                sensor_noise,
+            },
+            noise: file.noise.clone(),
+            falls: file.falls.clone(),
+            onset: file.onset.clone(),
+        })
+    }
+
+    /// Load the scenario's robot.
+    pub fn load_robot(&self) -> Result<LoadedRobot, String> {
+        match &self.robot_path {
+            None => LoadedRobot::demo(),
+            Some(p) => LoadedRobot::from_facts_file(p)
+                .map_err(|e| format!("{}: field `robot`: {e}", self.source)),
+        }
+    }
+
+    /// Build the plan on every slope of the matrix, so a gait that does not fit (too short a
+    /// duration, a step out of reach on a steep slope) is reported before anything runs.
+    pub fn check_plans(&self, robot: &LoadedRobot) -> Result<(), ScenarioError> {
+        for &deg in &self.axes.slope_deg {
+            let slope = crate::plant::terrain::Slope::degrees(deg);
+            crate::planner::Plan::build(
+                &robot.model,
+                &robot.facts,
+                &slope,
+                &self.gait,
+                self.duration,
+            )
+            .map_err(|e| {
+                ScenarioError(format!(
+                    "{}: fields `gait` and `duration` on the {deg}° slope of `axes.slope_deg`: {e}",
+                    self.source
+                ))
+            })?;
+        }
+        Ok(())
+    }
+
+    /// Number of cells of the matrix.
+    pub fn cell_count(&self) -> usize {
+        let a = &self.axes;
+        a.slope_deg.len()
+            * a.mu.len()
+            * a.rate_hz.len()
+            * a.actuator.len()
+            * a.controller.len()
+            * a.mass_scale.len()
+            * a.com_shift_mm.len()
+            * a.sensor_noise.len()
+            * self.seeds as usize
+    }
+}
