@@ -1,0 +1,570 @@
+//! Reading a finished run folder: `cells.csv`, `manifest.json`, and the optional
+//! `timing.csv` and `onset.csv`.
+//!
+//! Everything here is file data, so nothing may panic on it: every problem becomes an error
+//! that names the file and, for a CSV, the data row, the file line and the column. Row and line
+//! differ when a quoted message spans lines, so both are given.
+
+use std::collections::{HashMap, HashSet};
+use std::path::{Path, PathBuf};
+
+/// File names inside a run folder (the runner writes them; the report reads them).
+pub const CELLS_FILE: &str = "cells.csv";
+pub const TIMING_FILE: &str = "timing.csv";
+pub const MANIFEST_FILE: &str = "manifest.json";
+pub const ONSET_FILE: &str = "onset.csv";
+
+/// How a cell ended, as the runner writes it in the `status` column.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Status {
+    Ok,
+    Fell,
+    Diverged,
+    Infeasible,
+    Error,
+}
+
+impl Status {
+    pub const ALL: [Status; 5] = [
+        Status::Ok,
+        Status::Infeasible,
+        Status::Fell,
+        Status::Diverged,
+        Status::Error,
+    ];
+
+    pub fn name(self) -> &'static str {
+        match self {
+            Status::Ok => "ok",
+            Status::Fell => "fell",
+            Status::Diverged => "diverged",
+            Status::Infeasible => "infeasible",
+            Status::Error => "error",
+        }
+    }
+
+    fn parse(s: &str) -> Option<Status> {
+        Status::ALL.into_iter().find(|st| st.name() == s)
+    }
+
+    /// Runs that went the whole planned duration. An infeasible law still drove the robot to
+    /// the end (with its closest feasible command), so its slip and tracking are comparable;
+    /// a run that fell or diverged stopped early and its averages cover a different, shorter
+    /// motion, so they would flatter or punish the law arbitrarily.
+    pub fn counts_for_means(self) -> bool {
+        matches!(self, Status::Ok | Status::Infeasible)
+    }
+
+    /// Runs the robot did not survive.
+    pub fn is_fall(self) -> bool {
+        matches!(self, Status::Fell | Status::Diverged)
+    }
+}
+
+/// The per-cell metric columns of `cells.csv`, in file order.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Metric {
+    SimTime,
+    SlipMean,
+    SlipMax,
+    SlipTotal,
+    StancePhases,
+    BasePosRms,
+    BaseOrientRms,
+    JointRms,
+    Progress,
+    ProgressPlanned,
+    TorqueRms,
+    TorquePeak,
+    TorqueLimitShare,
+    Energy,
+    FrictionUseMax,
+    FrictionOverShare,
+    LawTroubleShare,
+}
+
+impl Metric {
+    pub const ALL: [Metric; 17] = [
+        Metric::SimTime,
+        Metric::SlipMean,
+        Metric::SlipMax,
+        Metric::SlipTotal,
+        Metric::StancePhases,
+        Metric::BasePosRms,
+        Metric::BaseOrientRms,
+        Metric::JointRms,
+        Metric::Progress,
+        Metric::ProgressPlanned,
+        Metric::TorqueRms,
+        Metric::TorquePeak,
+        Metric::TorqueLimitShare,
+        Metric::Energy,
+        Metric::FrictionUseMax,
+        Metric::FrictionOverShare,
+        Metric::LawTroubleShare,
+    ];
+
+    /// Column name in `cells.csv` (and metric name in `summary.csv`).
+    pub fn column(self) -> &'static str {
+        match self {
+            Metric::SimTime => "sim_time_s",
+            Metric::SlipMean => "slip_mean_mm",
+            Metric::SlipMax => "slip_max_mm",
+            Metric::SlipTotal => "slip_total_mm",
+            Metric::StancePhases => "stance_phases",
+            Metric::BasePosRms => "base_pos_rms_mm",
+            Metric::BaseOrientRms => "base_orient_rms_deg",
+            Metric::JointRms => "joint_rms_deg",
+            Metric::Progress => "progress_m",
+            Metric::ProgressPlanned => "progress_planned_m",
+            Metric::TorqueRms => "torque_rms_nm",
+            Metric::TorquePeak => "torque_peak_nm",
+            Metric::TorqueLimitShare => "torque_limit_share",
+            Metric::Energy => "energy_j",
+            Metric::FrictionUseMax => "friction_use_max",
+            Metric::FrictionOverShare => "friction_over_share",
+            Metric::LawTroubleShare => "law_trouble_share",
+        }
+    }
+
+    /// Whether the column holds a count rather than a measurement.
+    fn is_integer(self) -> bool {
+        matches!(self, Metric::StancePhases)
+    }
+}
+
+/// One row of `cells.csv`.
+#[derive(Clone, Debug)]
+pub struct Cell {
+    pub id: String,
+    pub index: u64,
+    pub slope_deg: f64,
+    pub mu: f64,
+    pub rate_hz: f64,
+    pub actuator: String,
+    pub controller: String,
+    pub mass_scale: f64,
+    pub com_shift_mm: f64,
+    pub sensor_noise: f64,
+    pub seed: u64,
+    pub status: Status,
+    pub message: String,
+    metrics: [f64; Metric::ALL.len()],
+}
+
+impl Cell {
+    /// The metric as written; NaN where the runner could not define it.
+    pub fn metric(&self, m: Metric) -> f64 {
+        self.metrics[m as usize]
+    }
+}
+
+/// The fields of `manifest.json` the report relies on.
+#[derive(Clone, Debug)]
+pub struct Manifest {
+    pub scenario_name: String,
+    pub slip_floor_mm: f64,
+    pub tool_version: String,
+}
+
+/// One row of `timing.csv`: machine measurements, kept apart from `cells.csv` so that file is
+/// bit-identical across thread counts.
+#[derive(Clone, Copy, Debug)]
+pub struct Timing {
+    pub compute_median_us: f64,
+    pub compute_p99_us: f64,
+    pub wall_s: f64,
+}
+
+/// One row of `onset.csv`: the steepest slope a law held for one group.
+#[derive(Clone, Debug)]
+pub struct OnsetRow {
+    pub mu: f64,
+    pub controller: String,
+    pub rate_hz: f64,
+    pub actuator: String,
+    pub onset_deg: f64,
+    pub friction_angle_deg: f64,
+    pub runs: u64,
+}
+
+/// Everything read from a run folder.
+#[derive(Clone, Debug)]
+pub struct Run {
+    pub dir: PathBuf,
+    pub manifest: Manifest,
+    /// Sorted by `index` (matrix order), whatever order the runner appended them in.
+    pub cells: Vec<Cell>,
+    /// `None` when the run has no `timing.csv`.
+    pub timing: Option<HashMap<String, Timing>>,
+    /// Rows of `timing.csv` whose `cell_id` is not in `cells.csv` (left out of the tables).
+    pub timing_unmatched: usize,
+    /// `None` when the run has no `onset.csv`.
+    pub onset: Option<Vec<OnsetRow>>,
+}
+
+/// Reads a whole run folder.
+pub fn read_run(dir: &Path) -> Result<Run, String> {
+    if !dir.is_dir() {
+        return Err(format!(
+            "{}: not a run folder (no such directory)",
+            dir.display()
+        ));
+    }
+    let manifest = read_manifest(&dir.join(MANIFEST_FILE))?;
+    let cells = read_cells(&dir.join(CELLS_FILE))?;
+    let timing_path = dir.join(TIMING_FILE);
+    let (timing, timing_unmatched) = if timing_path.exists() {
+        let known: HashSet<&str> = cells.iter().map(|c| c.id.as_str()).collect();
+        let all = read_timing(&timing_path)?;
+        let total = all.len();
+        let kept: HashMap<String, Timing> = all
+            .into_iter()
+            .filter(|(id, _)| known.contains(id.as_str()))
+            .collect();
+        let unmatched = total - kept.len();
+        (Some(kept), unmatched)
+    } else {
+        (None, 0)
+    };
+    let onset_path = dir.join(ONSET_FILE);
+    let onset = if onset_path.exists() {
+        Some(read_onset(&onset_path)?)
+    } else {
+        None
+    };
+    Ok(Run {
+        dir: dir.to_path_buf(),
+        manifest,
+        cells,
+        timing,
+        timing_unmatched,
+        onset,
+    })
+}
+
+/// Reads `manifest.json`; only the three fields the report needs are required.
+pub fn read_manifest(path: &Path) -> Result<Manifest, String> {
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+    let value: serde_json::Value = serde_json::from_str(&text)
+        .map_err(|e| format!("{}: not valid JSON: {e}", path.display()))?;
+    let obj = value
+        .as_object()
+        .ok_or_else(|| format!("{}: expected a JSON object at the top", path.display()))?;
+    let field = |name: &str| {
+        obj.get(name)
+            .ok_or_else(|| format!("{}: missing field '{name}'", path.display()))
+    };
+    let string_field = |name: &str| -> Result<String, String> {
+        field(name)?
+            .as_str()
+            .map(str::to_string)
+            .ok_or_else(|| format!("{}: field '{name}' must be a string", path.display()))
+    };
+    let scenario_name = string_field("scenario_name")?;
+    let tool_version = string_field("tool_version")?;
+    let slip_floor_mm = field("slip_floor_mm")?.as_f64().ok_or_else(|| {
+        format!(
+            "{}: field 'slip_floor_mm' must be a number (mm of apparent slip per stance phase)",
+            path.display()
+        )
+    })?;
+    if !slip_floor_mm.is_finite() || slip_floor_mm < 0.0 {
+        return Err(format!(
+            "{}: field 'slip_floor_mm' must be a finite number ≥ 0, found {slip_floor_mm}",
+            path.display()
+        ));
+    }
+    Ok(Manifest {
+        scenario_name,
+        slip_floor_mm,
+        tool_version,
+    })
+}
+
+/// The identity and axis columns of `cells.csv`, before the metrics.
+const CELL_KEY_COLUMNS: [&str; 13] = [
+    "cell_id",
+    "index",
+    "slope_deg",
+    "mu",
+    "rate_hz",
+    "actuator",
+    "controller",
+    "mass_scale",
+    "com_shift_mm",
+    "sensor_noise",
+    "seed",
+    "status",
+    "message",
+];
+
+/// Reads `cells.csv` and returns the cells in matrix order.
+pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
+    let mut required: Vec<&str> = CELL_KEY_COLUMNS.to_vec();
+    required.extend(Metric::ALL.iter().map(|m| m.column()));
+    let table = CsvTable::read(path, &required)?;
+    let mut cells = Vec::with_capacity(table.rows.len());
+    let mut seen_id: HashMap<String, usize> = HashMap::new();
+    for row in table.rows() {
+        let id = row.text("cell_id")?.to_string();
+        if id.len() != 16 || !id.bytes().all(|b| b.is_ascii_hexdigit()) {
+            return Err(row.error("cell_id", &format!("expected 16 hex digits, found '{id}'")));
+        }
+        if let Some(first) = seen_id.insert(id.clone(), row.row) {
+            return Err(row.error(
+                "cell_id",
+                &format!(
+                    "cell '{id}' appears twice (first at row {first}); merge or resume doubled it"
+                ),
+            ));
+        }
+        let status_text = row.text("status")?;
+        let status = Status::parse(status_text).ok_or_else(|| {
+            row.error(
+                "status",
+                &format!("unknown status '{status_text}'; expected one of ok, fell, diverged, infeasible, error"),
+            )
+        })?;
+        let mut metrics = [f64::NAN; Metric::ALL.len()];
+        for m in Metric::ALL {
+            metrics[m as usize] = if m.is_integer() {
+                row.integer(m.column())? as f64
+            } else {
+                row.number(m.column())?
+            };
+        }
+        cells.push(Cell {
+            id,
+            index: row.integer("index")?,
+            slope_deg: row.axis_number("slope_deg")?,
+            mu: row.axis_number("mu")?,
+            rate_hz: row.axis_number("rate_hz")?,
+            actuator: row.name("actuator")?,
+            controller: row.name("controller")?,
+            mass_scale: row.axis_number("mass_scale")?,
+            com_shift_mm: row.axis_number("com_shift_mm")?,
+            sensor_noise: row.axis_number("sensor_noise")?,
+            seed: row.integer("seed")?,
+            status,
+            message: row.text("message")?.to_string(),
+            metrics,
+        });
+    }
+    if cells.is_empty() {
+        return Err(format!(
+            "{}: no cells (only a header); nothing to report",
+            path.display()
+        ));
+    }
+    // Matrix order, so "first appearance" of a controller or actuator means the scenario's
+    // order, not the order in which parallel workers happened to finish.
+    cells.sort_by_key(|c| c.index);
+    Ok(cells)
+}
+
+/// Reads `timing.csv` into a map from cell id.
+pub fn read_timing(path: &Path) -> Result<Vec<(String, Timing)>, String> {
+    let table = CsvTable::read(
+        path,
+        &["cell_id", "compute_median_us", "compute_p99_us", "wall_s"],
+    )?;
+    let mut out = Vec::with_capacity(table.rows.len());
+    let mut seen: HashSet<String> = HashSet::new();
+    for row in table.rows() {
+        let id = row.text("cell_id")?.to_string();
+        if !seen.insert(id.clone()) {
+            return Err(row.error("cell_id", &format!("cell '{id}' appears twice")));
+        }
+        out.push((
+            id,
+            Timing {
+                compute_median_us: row.number("compute_median_us")?,
+                compute_p99_us: row.number("compute_p99_us")?,
+                wall_s: row.number("wall_s")?,
+            },
+        ));
+    }
+    Ok(out)
+}
+
+/// Reads `onset.csv`.
+pub fn read_onset(path: &Path) -> Result<Vec<OnsetRow>, String> {
+    let table = CsvTable::read(
+        path,
+        &[
+            "mu",
+            "controller",
+            "rate_hz",
+            "actuator",
+            "onset_deg",
+            "friction_angle_deg",
+            "runs",
+        ],
+    )?;
+    let mut out = Vec::with_capacity(table.rows.len());
+    for row in table.rows() {
+        out.push(OnsetRow {
+            mu: row.axis_number("mu")?,
+            controller: row.name("controller")?,
+            rate_hz: row.axis_number("rate_hz")?,
+            actuator: row.name("actuator")?,
+            onset_deg: row.number("onset_deg")?,
+            friction_angle_deg: row.number("friction_angle_deg")?,
+            runs: row.integer("runs")?,
+        });
+    }
+    Ok(out)
+}
+
+/// A CSV file held as text records, with the header mapped to column positions.
+struct CsvTable {
+    path: PathBuf,
+    columns: HashMap<String, usize>,
+    /// (data row number from 1, file line where the record starts, fields)
+    rows: Vec<(usize, u64, csv::StringRecord)>,
+}
+
+impl CsvTable {
+    fn read(path: &Path, required: &[&str]) -> Result<CsvTable, String> {
+        let file = std::fs::File::open(path)
+            .map_err(|e| format!("{}: cannot open: {e}", path.display()))?;
+        // Flexible so that a short or long row reaches our own check, which names the row and
+        // the first missing column instead of the reader's generic length message.
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(true)
+            .flexible(true)
+            .from_reader(std::io::BufReader::new(file));
+        let header = reader
+            .headers()
+            .map_err(|e| format!("{}: line 1 (header): {e}", path.display()))?
+            .clone();
+        let mut columns = HashMap::new();
+        for (i, name) in header.iter().enumerate() {
+            if columns.insert(name.trim().to_string(), i).is_some() {
+                return Err(format!(
+                    "{}: line 1 (header), column {}: column '{}' appears twice",
+                    path.display(),
+                    i + 1,
+                    name.trim()
+                ));
+            }
+        }
+        for name in required {
+            if !columns.contains_key(*name) {
+                return Err(format!(
+                    "{}: line 1 (header): missing column '{name}' (found: {})",
+                    path.display(),
+                    header.iter().collect::<Vec<_>>().join(", ")
+                ));
+            }
+        }
+        let mut rows = Vec::new();
+        for (i, record) in reader.records().enumerate() {
+            let row = i + 1;
+            let record = record.map_err(|e| {
+                let line = e.position().map(|p| p.line()).unwrap_or(0);
+                format!("{}: row {row} (line {line}): {e}", path.display())
+            })?;
+            let line = record.position().map(|p| p.line()).unwrap_or(0);
+            if record.len() != header.len() {
+                let what = if record.len() < header.len() {
+                    format!(
+                        "has {} fields, the header has {}; column '{}' is missing",
+                        record.len(),
+                        header.len(),
+                        header.get(record.len()).unwrap_or("?")
+                    )
+                } else {
+                    format!(
+                        "has {} fields, the header has {} (an unquoted comma in a message?)",
+                        record.len(),
+                        header.len()
+                    )
+                };
+                return Err(format!(
+                    "{}: row {row} (line {line}) {what}",
+                    path.display()
+                ));
+            }
+            rows.push((row, line, record));
+        }
+        Ok(CsvTable {
+            path: path.to_path_buf(),
+            columns,
+            rows,
+        })
+    }
+
+    fn rows(&self) -> impl Iterator<Item = RowRef<'_>> {
+        self.rows.iter().map(|(row, line, record)| RowRef {
+            table: self,
+            row: *row,
+            line: *line,
+            record,
+        })
+    }
+}
+
+/// One data row with typed, error-reporting accessors.
+struct RowRef<'a> {
+    table: &'a CsvTable,
+    row: usize,
+    line: u64,
+    record: &'a csv::StringRecord,
+}
+
+impl RowRef<'_> {
+    fn error(&self, column: &str, what: &str) -> String {
+        format!(
+            "{}: row {} (line {}), column '{column}': {what}",
+            self.table.path.display(),
+            self.row,
+            self.line
+        )
+    }
+
+    fn text(&self, column: &str) -> Result<&str, String> {
+        self.table
+            .columns
+            .get(column)
+            .and_then(|&i| self.record.get(i))
+            .ok_or_else(|| self.error(column, "missing"))
+    }
+
+    /// A name (controller, actuator): any non-empty text.
+    fn name(&self, column: &str) -> Result<String, String> {
+        let t = self.text(column)?.trim();
+        if t.is_empty() {
+            return Err(self.error(column, "empty; expected a name"));
+        }
+        Ok(t.to_string())
+    }
+
+    /// A metric: a number, or NaN where it is undefined.
+    fn number(&self, column: &str) -> Result<f64, String> {
+        let t = self.text(column)?.trim();
+        t.parse::<f64>().map_err(|_| {
+            self.error(
+                column,
+                &format!("expected a number (NaN where undefined), found '{t}'"),
+            )
+        })
+    }
+
+    /// An axis value: a finite number, since rows are grouped by it.
+    fn axis_number(&self, column: &str) -> Result<f64, String> {
+        let t = self.text(column)?.trim();
+        match t.parse::<f64>() {
+            Ok(v) if v.is_finite() => Ok(v),
+            _ => Err(self.error(column, &format!("expected a finite number, found '{t}'"))),
+        }
+    }
+
+    fn integer(&self, column: &str) -> Result<u64, String> {
+        let t = self.text(column)?.trim();
+        t.parse::<u64>()
+            .map_err(|_| self.error(column, &format!("expected a whole number ≥ 0, found '{t}'")))
+    }
+}

@@ -1,0 +1,150 @@
+//! The report: reduces a finished run folder to tables for people (`summary.md`), the same
+//! numbers for machines (`summary.csv`) and figures (`plots/*.svg`, `plots/*.png`).
+//!
+//! It reads only the run's files (`cells.csv`, `manifest.json`, and `timing.csv` and
+//! `onset.csv` when present), so `gripsweep report DIR` rebuilds the same report from a copy
+//! of the folder on any machine. Data flows one way: input → tables → (markdown, csv, plots).
+
+mod figures;
+mod input;
+mod long_csv;
+mod look;
+mod markdown;
+mod plots;
+mod stats;
+mod tables;
+
+use std::path::{Path, PathBuf};
+
+pub use input::{
+    CELLS_FILE, Cell, MANIFEST_FILE, Manifest, Metric, ONSET_FILE, OnsetRow, Run, Status,
+    TIMING_FILE, Timing, read_run,
+};
+pub use plots::Image;
+pub use stats::{Stat, mean_ci95, over_seeds, t_975};
+pub use tables::{Verdict, judge};
+
+use tables::{Axis, ComputeRow, Condition, Entry, LawRecord, Measure, OnsetTable, Pivot, Study};
+
+/// Name of the people's summary inside the run folder.
+pub const SUMMARY_MD: &str = "summary.md";
+/// Name of the machines' summary inside the run folder.
+pub const SUMMARY_CSV: &str = "summary.csv";
+/// Folder of the figures inside the run folder.
+pub const PLOTS_DIR: &str = "plots";
+
+/// What `write_report` did.
+#[derive(Clone, Debug)]
+pub struct ReportSummary {
+    /// Every file written, summaries first, then figures (SVG before PNG).
+    pub files: Vec<PathBuf>,
+    /// The figures with their pixel size (the SVG and the PNG of a figure share it).
+    pub images: Vec<Image>,
+    /// Figures not drawn, each with the reason (also stated in `summary.md`).
+    pub skipped: Vec<String>,
+    /// Cells read from `cells.csv`.
+    pub cells: usize,
+    /// Controllers in matrix order.
+    pub controllers: Vec<String>,
+    /// The slip floor every "lowest slip" verdict was judged against (mm per stance phase).
+    pub slip_floor_mm: f64,
+}
+
+/// Every table of the report, computed once and read by the three writers.
+pub(crate) struct Computed {
+    pub slip_by_friction: Vec<Pivot>,
+    pub tracking_by_friction: Vec<Pivot>,
+    pub rate_slip: Pivot,
+    pub rate_tracking: Pivot,
+    pub actuator_slip: Pivot,
+    pub actuator_tracking: Pivot,
+    /// Per-controller means of each measure over the whole run.
+    pub per_controller: Vec<(Measure, Vec<Entry>)>,
+    pub conditions: Vec<Condition>,
+    pub records: Vec<LawRecord>,
+    pub statuses: Vec<[usize; 5]>,
+    pub compute: Option<Vec<ComputeRow>>,
+    pub onset: Option<Vec<OnsetTable>>,
+}
+
+impl Computed {
+    fn new(study: &Study) -> Computed {
+        let n_ctrl = study.controllers().len();
+        let per_controller = tables::TRACKING_EFFORT
+            .iter()
+            .chain(tables::CONTACT_HEALTH.iter())
+            .chain(std::iter::once(&tables::SLIP))
+            .map(|m| (*m, (0..n_ctrl).map(|c| study.entry(c, &[], *m)).collect()))
+            .collect();
+        let conditions = study.conditions();
+        let records = study.records(&conditions);
+        Computed {
+            slip_by_friction: study.slip_by_friction(),
+            tracking_by_friction: study.tracking_by_friction(),
+            rate_slip: study.pivot("rate_study", None, Axis::Rate, tables::SLIP, true),
+            rate_tracking: study.pivot("rate_study", None, Axis::Rate, tables::BASE_POS, false),
+            actuator_slip: study.pivot("actuator_study", None, Axis::Actuator, tables::SLIP, true),
+            actuator_tracking: study.pivot(
+                "actuator_study",
+                None,
+                Axis::Actuator,
+                tables::BASE_POS,
+                false,
+            ),
+            per_controller,
+            conditions,
+            records,
+            statuses: study.status_counts(),
+            compute: study.compute_times(),
+            onset: study.onset_tables(),
+        }
+    }
+}
+
+/// Reads the run folder `dir` and writes `summary.md`, `summary.csv` and `plots/` into it.
+///
+/// Errors name the file and, for CSV data, the row, line and column; nothing is written when
+/// the input cannot be read.
+pub fn write_report(dir: &Path) -> Result<ReportSummary, String> {
+    let run = read_run(dir)?;
+    let study = Study::new(&run);
+    let computed = Computed::new(&study);
+    let planned = figures::plan(&study, &computed);
+
+    let plots_dir = dir.join(PLOTS_DIR);
+    std::fs::create_dir_all(&plots_dir)
+        .map_err(|e| format!("{}: cannot create: {e}", plots_dir.display()))?;
+    let mut images = Vec::new();
+    for fig in &planned.figures {
+        images.extend(fig.render(&plots_dir)?);
+    }
+    // A figure skipped now may exist from an earlier report of a folder that had more data;
+    // leaving it would show a plot the summary says is not there.
+    for stem in &planned.skipped_stems {
+        for ext in ["svg", "png"] {
+            let stale = plots_dir.join(format!("{stem}.{ext}"));
+            if stale.exists() {
+                std::fs::remove_file(&stale)
+                    .map_err(|e| format!("{}: cannot remove stale figure: {e}", stale.display()))?;
+            }
+        }
+    }
+
+    let md_path = dir.join(SUMMARY_MD);
+    let md = markdown::render(&study, &computed, &planned);
+    std::fs::write(&md_path, md)
+        .map_err(|e| format!("{}: cannot write: {e}", md_path.display()))?;
+    let csv_path = dir.join(SUMMARY_CSV);
+    long_csv::write(&csv_path, &study, &computed)?;
+
+    let mut files = vec![md_path, csv_path];
+    files.extend(images.iter().map(|i| i.path.clone()));
+    Ok(ReportSummary {
+        files,
+        images,
+        skipped: planned.skipped.clone(),
+        cells: run.cells.len(),
+        controllers: study.controllers().to_vec(),
+        slip_floor_mm: run.manifest.slip_floor_mm,
+    })
+}

@@ -1,0 +1,818 @@
+//! From cells to tables: the axes of the run, grouped means over seeds, the slip-floor rule
+//! that decides which law (if any) had the lowest slip, and the per-condition comparison that
+//! the "where each law wins" text is generated from.
+//!
+//! Nothing here formats text; `markdown.rs`, `long_csv.rs` and `plots.rs` read these values.
+
+use std::collections::HashMap;
+
+use super::input::{Cell, Metric, OnsetRow, Run, Status};
+use super::stats::{Stat, over_seeds};
+
+/// The matrix axes a condition is made of (every axis but the seed and the controller).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Axis {
+    Slope,
+    Mu,
+    Rate,
+    Actuator,
+    MassScale,
+    ComShift,
+    Noise,
+}
+
+impl Axis {
+    /// Every condition axis, in the order they are named in text and in `summary.csv`.
+    pub const ALL: [Axis; 7] = [
+        Axis::Slope,
+        Axis::Mu,
+        Axis::Rate,
+        Axis::Actuator,
+        Axis::MassScale,
+        Axis::ComShift,
+        Axis::Noise,
+    ];
+
+    /// Column name in `cells.csv` and `summary.csv`.
+    pub fn column(self) -> &'static str {
+        match self {
+            Axis::Slope => "slope_deg",
+            Axis::Mu => "mu",
+            Axis::Rate => "rate_hz",
+            Axis::Actuator => "actuator",
+            Axis::MassScale => "mass_scale",
+            Axis::ComShift => "com_shift_mm",
+            Axis::Noise => "sensor_noise",
+        }
+    }
+
+    /// What the axis is, for people.
+    pub fn label(self) -> &'static str {
+        match self {
+            Axis::Slope => "slope",
+            Axis::Mu => "friction coefficient μ",
+            Axis::Rate => "control rate",
+            Axis::Actuator => "actuator",
+            Axis::MassScale => "model mass scale",
+            Axis::ComShift => "model CoM shift",
+            Axis::Noise => "sensor noise",
+        }
+    }
+}
+
+/// The distinct values of each axis: numbers ascending, names in matrix order.
+#[derive(Clone, Debug)]
+pub struct Axes {
+    numeric: [Vec<f64>; 7],
+    pub actuators: Vec<String>,
+    pub controllers: Vec<String>,
+}
+
+impl Axes {
+    fn from_cells(cells: &[Cell]) -> Axes {
+        let mut numeric: [Vec<f64>; 7] = Default::default();
+        let mut actuators: Vec<String> = Vec::new();
+        let mut controllers: Vec<String> = Vec::new();
+        for c in cells {
+            for axis in Axis::ALL {
+                if let Some(v) = numeric_value(c, axis) {
+                    numeric[axis as usize].push(v);
+                }
+            }
+            if !actuators.contains(&c.actuator) {
+                actuators.push(c.actuator.clone());
+            }
+            if !controllers.contains(&c.controller) {
+                controllers.push(c.controller.clone());
+            }
+        }
+        for values in &mut numeric {
+            values.sort_by(f64::total_cmp);
+            values.dedup();
+        }
+        Axes {
+            numeric,
+            actuators,
+            controllers,
+        }
+    }
+
+    /// Number of distinct values on an axis.
+    pub fn len(&self, axis: Axis) -> usize {
+        match axis {
+            Axis::Actuator => self.actuators.len(),
+            _ => self.numeric[axis as usize].len(),
+        }
+    }
+
+    /// The numeric values of a numeric axis (empty for the actuator axis).
+    pub fn numbers(&self, axis: Axis) -> &[f64] {
+        &self.numeric[axis as usize]
+    }
+
+    fn index(&self, c: &Cell, axis: Axis) -> usize {
+        match numeric_value(c, axis) {
+            Some(v) => self.numeric[axis as usize]
+                .iter()
+                .position(|x| *x == v)
+                .unwrap_or(0),
+            None => self
+                .actuators
+                .iter()
+                .position(|a| *a == c.actuator)
+                .unwrap_or(0),
+        }
+    }
+
+    /// The value as written in `summary.csv` (shortest round-trip, or the name).
+    pub fn value_raw(&self, axis: Axis, i: usize) -> String {
+        match axis {
+            Axis::Actuator => self.actuators.get(i).cloned().unwrap_or_default(),
+            _ => self.numeric[axis as usize]
+                .get(i)
+                .map(|v| format!("{v}"))
+                .unwrap_or_default(),
+        }
+    }
+
+    /// The value with its unit, for people ("slope 15°", "μ 0.4", "100 Hz", "ideal", …).
+    pub fn value_text(&self, axis: Axis, i: usize) -> String {
+        let raw = self.value_raw(axis, i);
+        match axis {
+            Axis::Slope => format!("slope {raw}°"),
+            Axis::Mu => format!("μ {raw}"),
+            Axis::Rate => format!("{raw} Hz"),
+            Axis::Actuator => raw,
+            Axis::MassScale => format!("model mass ×{raw}"),
+            Axis::ComShift => format!("model CoM shift {raw} mm"),
+            Axis::Noise => format!("sensor noise ×{raw}"),
+        }
+    }
+}
+
+fn numeric_value(c: &Cell, axis: Axis) -> Option<f64> {
+    match axis {
+        Axis::Slope => Some(c.slope_deg),
+        Axis::Mu => Some(c.mu),
+        Axis::Rate => Some(c.rate_hz),
+        Axis::Actuator => None,
+        Axis::MassScale => Some(c.mass_scale),
+        Axis::ComShift => Some(c.com_shift_mm),
+        Axis::Noise => Some(c.sensor_noise),
+    }
+}
+
+/// A quantity averaged in the tables: a `cells.csv` metric or one derived from them.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Measure {
+    Plain(Metric),
+    /// Progress made as a share of the planned progress.
+    ProgressShare,
+}
+
+impl Measure {
+    pub fn value(self, c: &Cell) -> f64 {
+        match self {
+            Measure::Plain(m) => c.metric(m),
+            Measure::ProgressShare => {
+                let planned = c.metric(Metric::ProgressPlanned);
+                if planned.abs() > 0.0 {
+                    c.metric(Metric::Progress) / planned
+                } else {
+                    f64::NAN
+                }
+            }
+        }
+    }
+
+    /// Metric name in `summary.csv` (raw units, shares as 0..1).
+    pub fn name(self) -> &'static str {
+        match self {
+            Measure::Plain(m) => m.column(),
+            Measure::ProgressShare => "progress_share",
+        }
+    }
+
+    /// Column heading for people, with the unit.
+    pub fn heading(self) -> &'static str {
+        match self {
+            Measure::Plain(m) => match m {
+                Metric::SimTime => "simulated time (s)",
+                Metric::SlipMean => "mean slip per stance phase (mm)",
+                Metric::SlipMax => "largest stance slip (mm)",
+                Metric::SlipTotal => "total slip (mm)",
+                Metric::StancePhases => "stance phases",
+                Metric::BasePosRms => "base position error, RMS (mm)",
+                Metric::BaseOrientRms => "base orientation error, RMS (°)",
+                Metric::JointRms => "joint angle error, RMS (°)",
+                Metric::Progress => "progress uphill (m)",
+                Metric::ProgressPlanned => "planned progress (m)",
+                Metric::TorqueRms => "joint torque, RMS (N·m)",
+                Metric::TorquePeak => "joint torque, peak (N·m)",
+                Metric::TorqueLimitShare => "time at a torque limit (%)",
+                Metric::Energy => "mechanical energy (J)",
+                Metric::FrictionUseMax => "peak friction use ‖f_t‖/(μ f_n)",
+                Metric::FrictionOverShare => "stance time at the friction limit (%)",
+                Metric::LawTroubleShare => "steps the law did not solve (%)",
+            },
+            Measure::ProgressShare => "progress made (% of plan)",
+        }
+    }
+
+    /// Factor from the raw value to the value shown in `summary.md` (shares as percent).
+    pub fn display_scale(self) -> f64 {
+        match self {
+            Measure::Plain(
+                Metric::TorqueLimitShare | Metric::FrictionOverShare | Metric::LawTroubleShare,
+            )
+            | Measure::ProgressShare => 100.0,
+            Measure::Plain(_) => 1.0,
+        }
+    }
+}
+
+pub const SLIP: Measure = Measure::Plain(Metric::SlipMean);
+pub const BASE_POS: Measure = Measure::Plain(Metric::BasePosRms);
+
+/// Tracking and effort columns of the per-controller table.
+pub const TRACKING_EFFORT: [Measure; 8] = [
+    Measure::Plain(Metric::BasePosRms),
+    Measure::Plain(Metric::BaseOrientRms),
+    Measure::Plain(Metric::JointRms),
+    Measure::ProgressShare,
+    Measure::Plain(Metric::TorqueRms),
+    Measure::Plain(Metric::TorquePeak),
+    Measure::Plain(Metric::Energy),
+    Measure::Plain(Metric::TorqueLimitShare),
+];
+
+/// Contact and law-health columns of the per-controller table.
+pub const CONTACT_HEALTH: [Measure; 5] = [
+    Measure::Plain(Metric::SlipMax),
+    Measure::Plain(Metric::SlipTotal),
+    Measure::Plain(Metric::FrictionUseMax),
+    Measure::Plain(Metric::FrictionOverShare),
+    Measure::Plain(Metric::LawTroubleShare),
+];
+
+/// One table entry: a group of cells of one controller.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Entry {
+    /// Over the group's ok/infeasible cells; `None` when it has none with a defined value.
+    pub stat: Option<Stat>,
+    /// Cells of the group that fell or diverged (not in the mean).
+    pub fell: usize,
+    /// All cells of the group, whatever their status.
+    pub cells: usize,
+}
+
+impl Entry {
+    fn of<'a>(cells: impl Iterator<Item = &'a Cell>, measure: Measure) -> Entry {
+        let mut fell = 0;
+        let mut count = 0;
+        let mut samples = Vec::new();
+        for c in cells {
+            count += 1;
+            if c.status.is_fall() {
+                fell += 1;
+            }
+            if c.status.counts_for_means() {
+                samples.push((c.seed, measure.value(c)));
+            }
+        }
+        Entry {
+            stat: over_seeds(samples),
+            fell,
+            cells: count,
+        }
+    }
+}
+
+/// Which law had the lowest mean slip in a row, under the slip-floor rule.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Verdict {
+    /// One law lower than every other by more than the floor; `margin` to the runner-up.
+    Lowest {
+        ctrl: usize,
+        margin: f64,
+        runner_up: usize,
+    },
+    /// Two or more laws within the floor of the lowest mean (lowest first): no winner.
+    Tied(Vec<usize>),
+    /// Only one law had a mean to compare.
+    Only(usize),
+    /// No law had a mean.
+    NoData,
+}
+
+impl Verdict {
+    /// Laws that had the lowest slip or tied for it.
+    pub fn leaders(&self) -> Vec<usize> {
+        match self {
+            Verdict::Lowest { ctrl, .. } | Verdict::Only(ctrl) => vec![*ctrl],
+            Verdict::Tied(v) => v.clone(),
+            Verdict::NoData => Vec::new(),
+        }
+    }
+}
+
+/// The slip-floor rule: the lowest mean wins only if every other mean exceeds it by more than
+/// `floor`; every law within the floor of the lowest (difference ≤ floor) ties with it. A
+/// difference the plant's own jitter could produce is no evidence for either law (DESIGN.md,
+/// prototype findings: "never call one law better than another on differences below it").
+pub fn judge(means: &[(usize, f64)], floor: f64) -> Verdict {
+    let mut sorted: Vec<(usize, f64)> = means.iter().copied().filter(|m| m.1.is_finite()).collect();
+    sorted.sort_by(|a, b| a.1.total_cmp(&b.1));
+    match sorted.as_slice() {
+        [] => Verdict::NoData,
+        [(only, _)] => Verdict::Only(*only),
+        [(best, low), rest @ ..] => {
+            let tied: Vec<usize> = rest
+                .iter()
+                .filter(|(_, m)| m - low <= floor)
+                .map(|(c, _)| *c)
+                .collect();
+            if tied.is_empty() {
+                let (runner_up, second) = rest[0];
+                Verdict::Lowest {
+                    ctrl: *best,
+                    margin: second - low,
+                    runner_up,
+                }
+            } else {
+                let mut all = vec![*best];
+                all.extend(tied);
+                Verdict::Tied(all)
+            }
+        }
+    }
+}
+
+/// A controller-by-row table: rows are the values of one axis, columns the controllers,
+/// optionally for one fixed value of another axis (the slope, for the slip tables).
+#[derive(Clone, Debug)]
+pub struct Pivot {
+    /// Table name in `summary.csv`.
+    pub table: &'static str,
+    pub fixed: Option<(Axis, usize)>,
+    pub row_axis: Axis,
+    pub measure: Measure,
+    pub rows: Vec<PivotRow>,
+    /// Whether the rows carry a slip-floor verdict (slip tables only: the floor is a slip
+    /// floor and says nothing about tracking differences).
+    pub judged: bool,
+}
+
+#[derive(Clone, Debug)]
+pub struct PivotRow {
+    pub value: usize,
+    /// One per controller, in the run's controller order.
+    pub entries: Vec<Entry>,
+    /// Among the laws with a mean and no fall in the row (see [`Study::pivot`]).
+    pub verdict: Option<Verdict>,
+    /// Laws with a mean that fell or diverged somewhere in the row, so were not ranked.
+    pub unranked: Vec<usize>,
+}
+
+/// One combination of every condition axis (seeds and controllers aside).
+#[derive(Clone, Debug)]
+pub struct Condition {
+    /// Value index on each axis of [`Axis::ALL`].
+    pub idx: [usize; 7],
+    /// Mean slip per controller.
+    pub entries: Vec<Entry>,
+    /// Among the laws that had a slip mean and did not fall or diverge in any run here: a law
+    /// that fell has a mean only over the runs it survived, which would flatter it.
+    pub verdict: Verdict,
+}
+
+/// A controller's record over the conditions.
+#[derive(Clone, Debug, Default)]
+pub struct LawRecord {
+    /// Conditions where it had the lowest slip by more than the floor.
+    pub wins: Vec<usize>,
+    /// Conditions where it tied for the lowest slip.
+    pub ties: Vec<usize>,
+    /// Conditions where it was the only law that held without a fall.
+    pub only: Vec<usize>,
+    /// Conditions where it ran at all.
+    pub present: usize,
+    /// Conditions where it fell or diverged at least once.
+    pub fell_in: usize,
+}
+
+impl LawRecord {
+    pub fn leads(&self) -> usize {
+        self.wins.len() + self.ties.len() + self.only.len()
+    }
+}
+
+/// Per-controller compute time from `timing.csv`.
+#[derive(Clone, Debug)]
+pub struct ComputeRow {
+    pub median_us: Option<Stat>,
+    pub p99_us: Option<Stat>,
+    pub worst_p99_us: f64,
+    pub wall_s: f64,
+    pub cells: usize,
+}
+
+/// Onset angles of one (rate, actuator) group.
+#[derive(Clone, Debug)]
+pub struct OnsetTable {
+    pub rate_hz: f64,
+    pub actuator: String,
+    /// μ ascending.
+    pub mus: Vec<f64>,
+    /// `[mu][controller]` → (onset °, runs).
+    pub onset: Vec<Vec<Option<(f64, u64)>>>,
+    /// Friction angle per μ as the file gives it.
+    pub friction_angle_deg: Vec<f64>,
+}
+
+/// Everything the report shows, computed once.
+pub struct Study<'a> {
+    pub run: &'a Run,
+    pub axes: Axes,
+    /// Per cell (same order as `run.cells`): value index on each axis of [`Axis::ALL`].
+    keys: Vec<[usize; 7]>,
+    ctrl: Vec<usize>,
+    pub floor: f64,
+}
+
+impl<'a> Study<'a> {
+    pub fn new(run: &'a Run) -> Study<'a> {
+        let axes = Axes::from_cells(&run.cells);
+        let keys = run
+            .cells
+            .iter()
+            .map(|c| Axis::ALL.map(|a| axes.index(c, a)))
+            .collect();
+        let ctrl = run
+            .cells
+            .iter()
+            .map(|c| {
+                axes.controllers
+                    .iter()
+                    .position(|n| *n == c.controller)
+                    .unwrap_or(0)
+            })
+            .collect();
+        Study {
+            run,
+            axes,
+            keys,
+            ctrl,
+            floor: run.manifest.slip_floor_mm,
+        }
+    }
+
+    pub fn controllers(&self) -> &[String] {
+        &self.axes.controllers
+    }
+
+    /// Cells of controller `ctrl` whose axis values match every `(axis, value)` in `fixed`.
+    fn select<'s>(
+        &'s self,
+        ctrl: usize,
+        fixed: &'s [(Axis, usize)],
+    ) -> impl Iterator<Item = &'a Cell> + 's {
+        self.run
+            .cells
+            .iter()
+            .zip(self.keys.iter().zip(self.ctrl.iter()))
+            .filter(move |(_, (key, c))| {
+                **c == ctrl && fixed.iter().all(|(axis, v)| key[*axis as usize] == *v)
+            })
+            .map(|(cell, _)| cell)
+    }
+
+    /// The entry of one controller over the cells matching `fixed`.
+    pub fn entry(&self, ctrl: usize, fixed: &[(Axis, usize)], measure: Measure) -> Entry {
+        Entry::of(self.select(ctrl, fixed), measure)
+    }
+
+    /// A table with one row per value of `row_axis` (and a fixed value of another axis).
+    pub fn pivot(
+        &self,
+        table: &'static str,
+        fixed: Option<(Axis, usize)>,
+        row_axis: Axis,
+        measure: Measure,
+        judged: bool,
+    ) -> Pivot {
+        let rows = (0..self.axes.len(row_axis))
+            .map(|value| {
+                let mut sel = vec![(row_axis, value)];
+                sel.extend(fixed);
+                let entries: Vec<Entry> = (0..self.controllers().len())
+                    .map(|c| self.entry(c, &sel, measure))
+                    .collect();
+                // A law that fell somewhere in the row has a mean over only the runs it
+                // survived, usually the easier ones, so it is shown but not ranked.
+                let unranked: Vec<usize> = if judged {
+                    entries
+                        .iter()
+                        .enumerate()
+                        .filter(|(_, e)| e.stat.is_some() && e.fell > 0)
+                        .map(|(c, _)| c)
+                        .collect()
+                } else {
+                    Vec::new()
+                };
+                let verdict = judged.then(|| {
+                    let means: Vec<(usize, f64)> = entries
+                        .iter()
+                        .enumerate()
+                        .filter(|(_, e)| e.fell == 0)
+                        .filter_map(|(c, e)| e.stat.map(|s| (c, s.mean)))
+                        .collect();
+                    judge(&means, self.floor)
+                });
+                PivotRow {
+                    value,
+                    entries,
+                    verdict,
+                    unranked,
+                }
+            })
+            .collect();
+        Pivot {
+            table,
+            fixed,
+            row_axis,
+            measure,
+            rows,
+            judged,
+        }
+    }
+
+    /// Slip by μ × controller, one table per slope.
+    pub fn slip_by_friction(&self) -> Vec<Pivot> {
+        (0..self.axes.len(Axis::Slope))
+            .map(|s| {
+                self.pivot(
+                    "slip_by_friction",
+                    Some((Axis::Slope, s)),
+                    Axis::Mu,
+                    SLIP,
+                    true,
+                )
+            })
+            .collect()
+    }
+
+    /// Base position error by μ × controller, one table per slope (for the tracking plot).
+    pub fn tracking_by_friction(&self) -> Vec<Pivot> {
+        (0..self.axes.len(Axis::Slope))
+            .map(|s| {
+                self.pivot(
+                    "tracking_by_friction",
+                    Some((Axis::Slope, s)),
+                    Axis::Mu,
+                    BASE_POS,
+                    false,
+                )
+            })
+            .collect()
+    }
+
+    /// Every condition that has cells, in axis order, with its slip verdict.
+    pub fn conditions(&self) -> Vec<Condition> {
+        let n_ctrl = self.controllers().len();
+        let mut groups: HashMap<[usize; 7], Vec<Vec<&Cell>>> = HashMap::new();
+        for (cell, (key, c)) in self.run.cells.iter().zip(self.keys.iter().zip(&self.ctrl)) {
+            groups
+                .entry(*key)
+                .or_insert_with(|| vec![Vec::new(); n_ctrl])[*c]
+                .push(cell);
+        }
+        let mut keys: Vec<[usize; 7]> = groups.keys().copied().collect();
+        keys.sort();
+        keys.into_iter()
+            .map(|idx| {
+                let per_ctrl = groups.remove(&idx).unwrap_or_default();
+                let entries: Vec<Entry> = per_ctrl
+                    .iter()
+                    .map(|cells| Entry::of(cells.iter().copied(), SLIP))
+                    .collect();
+                let eligible: Vec<(usize, f64)> = entries
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, e)| e.fell == 0)
+                    .filter_map(|(c, e)| e.stat.map(|s| (c, s.mean)))
+                    .collect();
+                let verdict = judge(&eligible, self.floor);
+                Condition {
+                    idx,
+                    entries,
+                    verdict,
+                }
+            })
+            .collect()
+    }
+
+    /// Each controller's wins, ties and lone holds over the conditions.
+    pub fn records(&self, conditions: &[Condition]) -> Vec<LawRecord> {
+        let mut out = vec![LawRecord::default(); self.controllers().len()];
+        for (i, cond) in conditions.iter().enumerate() {
+            for (c, e) in cond.entries.iter().enumerate() {
+                if e.cells > 0 {
+                    out[c].present += 1;
+                }
+                if e.fell > 0 {
+                    out[c].fell_in += 1;
+                }
+            }
+            // "Only" counts as a lead only if some other law ran here and failed to hold.
+            let others_ran = cond.entries.iter().filter(|e| e.cells > 0).count() > 1;
+            match &cond.verdict {
+                Verdict::Lowest { ctrl, .. } => out[*ctrl].wins.push(i),
+                Verdict::Tied(v) => v.iter().for_each(|c| out[*c].ties.push(i)),
+                Verdict::Only(c) if others_ran => out[*c].only.push(i),
+                _ => {}
+            }
+        }
+        out
+    }
+
+    /// Status counts per controller, in [`Status::ALL`] order.
+    pub fn status_counts(&self) -> Vec<[usize; 5]> {
+        let mut out = vec![[0usize; 5]; self.controllers().len()];
+        for (cell, c) in self.run.cells.iter().zip(&self.ctrl) {
+            if let Some(k) = Status::ALL.iter().position(|s| *s == cell.status) {
+                out[*c][k] += 1;
+            }
+        }
+        out
+    }
+
+    /// The most frequent (status, controller, message) of runs that did not end ok.
+    pub fn frequent_messages(&self, limit: usize) -> Vec<(Status, String, String, usize)> {
+        let mut counts: HashMap<(Status, usize, &str), (usize, usize)> = HashMap::new();
+        for (i, (cell, c)) in self.run.cells.iter().zip(&self.ctrl).enumerate() {
+            if cell.status == Status::Ok || cell.message.trim().is_empty() {
+                continue;
+            }
+            let e = counts
+                .entry((cell.status, *c, cell.message.trim()))
+                .or_insert((0, i));
+            e.0 += 1;
+        }
+        let mut list: Vec<_> = counts.into_iter().collect();
+        // Most frequent first; first appearance in matrix order breaks ties, for a stable file.
+        list.sort_by(|a, b| b.1.0.cmp(&a.1.0).then(a.1.1.cmp(&b.1.1)));
+        list.into_iter()
+            .take(limit)
+            .map(|((status, c, msg), (n, _))| {
+                (status, self.controllers()[c].clone(), msg.to_string(), n)
+            })
+            .collect()
+    }
+
+    /// Compute time per controller; `None` without `timing.csv`.
+    pub fn compute_times(&self) -> Option<Vec<ComputeRow>> {
+        let timing = self.run.timing.as_ref()?;
+        Some(
+            (0..self.controllers().len())
+                .map(|c| {
+                    let timed: Vec<(&Cell, _)> = self
+                        .select(c, &[])
+                        .filter_map(|cell| timing.get(&cell.id).map(|t| (cell, *t)))
+                        .collect();
+                    // Compute time is a property of the law's arithmetic, valid up to a fall
+                    // too, so every timed cell counts here, whatever its status.
+                    ComputeRow {
+                        median_us: over_seeds(
+                            timed
+                                .iter()
+                                .map(|(cell, t)| (cell.seed, t.compute_median_us)),
+                        ),
+                        p99_us: over_seeds(
+                            timed.iter().map(|(cell, t)| (cell.seed, t.compute_p99_us)),
+                        ),
+                        worst_p99_us: timed
+                            .iter()
+                            .map(|(_, t)| t.compute_p99_us)
+                            .filter(|v| v.is_finite())
+                            .fold(f64::NAN, f64::max),
+                        wall_s: timed
+                            .iter()
+                            .map(|(_, t)| t.wall_s)
+                            .filter(|v| v.is_finite())
+                            .sum(),
+                        cells: timed.len(),
+                    }
+                })
+                .collect(),
+        )
+    }
+
+    /// Controllers of the onset study: the run's order, then any only the onset file names.
+    pub fn onset_controllers(&self) -> Vec<String> {
+        let mut names = self.controllers().to_vec();
+        for row in self.run.onset.iter().flatten() {
+            if !names.contains(&row.controller) {
+                names.push(row.controller.clone());
+            }
+        }
+        names
+    }
+
+    /// The onset study grouped by (rate, actuator); `None` without `onset.csv`.
+    pub fn onset_tables(&self) -> Option<Vec<OnsetTable>> {
+        let rows: &[OnsetRow] = self.run.onset.as_ref()?;
+        let names = self.onset_controllers();
+        let mut groups: Vec<(f64, String)> = Vec::new();
+        for r in rows {
+            if !groups
+                .iter()
+                .any(|(h, a)| *h == r.rate_hz && *a == r.actuator)
+            {
+                groups.push((r.rate_hz, r.actuator.clone()));
+            }
+        }
+        // Rate ascending, actuators in the run's order (then the file's).
+        let act_rank = |a: &str| {
+            self.axes
+                .actuators
+                .iter()
+                .position(|x| x == a)
+                .unwrap_or(usize::MAX)
+        };
+        groups.sort_by(|a, b| {
+            a.0.total_cmp(&b.0)
+                .then(act_rank(&a.1).cmp(&act_rank(&b.1)))
+        });
+        Some(
+            groups
+                .into_iter()
+                .map(|(rate_hz, actuator)| {
+                    let in_group: Vec<&OnsetRow> = rows
+                        .iter()
+                        .filter(|r| r.rate_hz == rate_hz && r.actuator == actuator)
+                        .collect();
+                    let mut mus: Vec<f64> = in_group.iter().map(|r| r.mu).collect();
+                    mus.sort_by(f64::total_cmp);
+                    mus.dedup();
+                    let mut onset = vec![vec![None; names.len()]; mus.len()];
+                    let mut friction_angle_deg = vec![f64::NAN; mus.len()];
+                    for r in &in_group {
+                        let (Some(m), Some(c)) = (
+                            mus.iter().position(|x| *x == r.mu),
+                            names.iter().position(|n| *n == r.controller),
+                        ) else {
+                            continue;
+                        };
+                        onset[m][c] = Some((r.onset_deg, r.runs));
+                        friction_angle_deg[m] = r.friction_angle_deg;
+                    }
+                    OnsetTable {
+                        rate_hz,
+                        actuator,
+                        mus,
+                        onset,
+                        friction_angle_deg,
+                    }
+                })
+                .collect(),
+        )
+    }
+
+    /// The name of a model-free stiff joint PD law, if the run has one. Names are the
+    /// scenario's, so it is recognised by a `pd` word in its name (`stiff-pd`, `pd-stiff`).
+    pub fn stiff_pd(&self) -> Option<usize> {
+        self.controllers().iter().position(|n| {
+            n.to_ascii_lowercase()
+                .split(|ch: char| !ch.is_ascii_alphanumeric())
+                .any(|w| w == "pd")
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn report_floor_rule() {
+        // Differences 0.05 and 0.30 against a floor of 0.1: the first ties, the second loses.
+        let v = judge(&[(0, 1.0), (1, 1.05), (2, 1.3)], 0.1);
+        assert_eq!(v, Verdict::Tied(vec![0, 1]));
+        match judge(&[(0, 1.3), (1, 1.0)], 0.1) {
+            Verdict::Lowest {
+                ctrl,
+                margin,
+                runner_up,
+            } => {
+                assert_eq!((ctrl, runner_up), (1, 0));
+                assert!((margin - 0.3).abs() < 1e-12);
+            }
+            other => panic!("expected a winner, got {other:?}"),
+        }
+        // Exactly the floor is not "more than the floor".
+        assert_eq!(judge(&[(0, 1.0), (1, 1.5)], 0.5), Verdict::Tied(vec![0, 1]));
+        assert_eq!(judge(&[(3, 2.0)], 0.1), Verdict::Only(3));
+        assert_eq!(judge(&[(3, f64::NAN)], 0.1), Verdict::NoData);
+    }
+}
