@@ -214,8 +214,18 @@ pub fn copy_into(dst: &mut DVector<f64>, src: &[f64]) {
 mod tests {
     use super::*;
 
+    /// Entries from splitmix64: full rank with probability one (a smooth formula such as
+    /// sin(a i + b j) would give a rank-2 matrix).
     fn test_matrix(m: usize, n: usize, seed: f64) -> DMatrix<f64> {
-        DMatrix::from_fn(m, n, |i, j| ((i * 7 + j * 3) as f64 * 0.37 + seed).sin())
+        let mut state = seed.to_bits();
+        DMatrix::from_fn(m, n, |_, _| {
+            state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
+            let mut z = state;
+            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+            z ^= z >> 31;
+            (z >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        })
     }
 
     #[test]

@@ -156,11 +156,13 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
     let robot = s.load_robot().map_err(RunError::input)?;
     s.check_plans(&robot).map_err(|e| RunError::input(e.0))?;
     let cells = expand(&s);
-    // Estimate: simulate a short stretch of the first cell of each controller and scale.
+    // Estimate: simulate a short stretch of standing (all feet down: the costliest control
+    // step) with each controller and scale by the cells' durations.
     let threads = a.threads.unwrap_or_else(rayon::current_num_threads).max(1);
     let probe = 0.5f64.min(s.duration);
     let mut short = s.clone();
     short.duration = probe;
+    short.gait = crate::planner::Gait::Stand;
     let mut per_controller = Vec::new();
     for c in &s.axes.controller {
         let cell = cells

@@ -6,6 +6,7 @@ pub mod cli_robot;
 pub mod cli_run;
 pub mod matrix;
 pub mod metrics;
+pub mod onset;
 pub mod planner;
 pub mod plant;
 pub mod report;

@@ -177,7 +177,7 @@ impl RowFile {
         } else {
             let mut rdr = csv::ReaderBuilder::new()
                 .has_headers(true)
-                .from_reader(text[..keep].as_bytes());
+                .from_reader(&text.as_bytes()[..keep]);
             let found: Vec<String> = rdr
                 .headers()
                 .map_err(|e| format!("{}: {e}", path.display()))?
@@ -367,6 +367,13 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         manifest(s, &robot, opts, total, cells.len(), floor)
     };
     man["slip_floor_mm"] = json!(floor);
+    if s.onset.is_some() {
+        let n = crate::onset::groups(s)
+            .into_iter()
+            .filter(|g| opts.shard.is_none_or(|(i, k)| g.index % k == i))
+            .count();
+        man["onset_groups"] = json!(n);
+    }
     write_manifest(out, &man).map_err(RunError::other)?;
 
     let head = header();
@@ -385,29 +392,14 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         scenario: s,
         robot: &robot,
     };
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(opts.threads.unwrap_or(0))
-        .build()
-        .map_err(|e| RunError::other(format!("thread pool: {e}")))?;
-    let (tx, rx) = mpsc::channel::<(usize, CellOutcome)>();
     let mut write_error = None;
     let mut plain_last = Instant::now();
     let n_todo = todo.len();
-    std::thread::scope(|scope| {
-        let todo_ref = &todo;
-        let ctx_ref = &ctx;
-        scope.spawn(move || {
-            pool.install(|| {
-                todo_ref
-                    .par_iter()
-                    .enumerate()
-                    .for_each_with(tx, |tx, (i, cell)| {
-                        let outcome = run_cell(ctx_ref, cell, None);
-                        let _ = tx.send((i, outcome));
-                    });
-            });
-        });
-        for (done_now, (i, outcome)) in rx.iter().enumerate() {
+    parallel_units(
+        opts.threads,
+        &todo,
+        |cell| run_cell(&ctx, cell, None),
+        |done_now, i, outcome| {
             let cell = todo[i];
             if outcome.status != CellStatus::Ok {
                 failures += 1;
@@ -444,11 +436,15 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
                     left
                 );
             }
-        }
-    });
+        },
+    )
+    .map_err(RunError::other)?;
     bar.finish_and_clear();
     if let Some(e) = write_error {
         return Err(RunError::other(e));
+    }
+    if let Some(o) = &s.onset {
+        run_onset(s, &robot, o, opts, floor).map_err(RunError::other)?;
     }
 
     // Complete: rewrite both files in matrix order, so a finished folder is byte-identical
@@ -467,6 +463,87 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         slip_floor_mm: floor,
         wall_s: started.elapsed().as_secs_f64(),
     })
+}
+
+/// Run `work` on every unit in parallel (rayon, `threads` workers, default one per core) and
+/// hand each result to `done(count_so_far, unit_index, result)` on the calling thread, in
+/// completion order.
+fn parallel_units<U: Sync, R: Send>(
+    threads: Option<usize>,
+    units: &[U],
+    work: impl Fn(&U) -> R + Sync,
+    mut done: impl FnMut(usize, usize, R),
+) -> Result<(), String> {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads.unwrap_or(0))
+        .build()
+        .map_err(|e| format!("thread pool: {e}"))?;
+    let (tx, rx) = mpsc::channel::<(usize, R)>();
+    std::thread::scope(|scope| {
+        let work = &work;
+        scope.spawn(move || {
+            pool.install(|| {
+                units
+                    .par_iter()
+                    .enumerate()
+                    .for_each_with(tx, |tx, (i, u)| {
+                        let _ = tx.send((i, work(u)));
+                    });
+            });
+        });
+        for (n, (i, r)) in rx.iter().enumerate() {
+            done(n, i, r);
+        }
+    });
+    Ok(())
+}
+
+/// The slip-onset study of a scenario (its `[onset]` table), into `onset.csv`.
+fn run_onset(
+    s: &Scenario,
+    robot: &LoadedRobot,
+    o: &crate::scenario::OnsetFile,
+    opts: &RunOptions,
+    floor: f64,
+) -> Result<(), String> {
+    use crate::onset::{ONSET_COLUMNS, ONSET_FILE, bisect, groups, record};
+    let mut all = groups(s);
+    if let Some((i, k)) = opts.shard {
+        all.retain(|g| g.index % k == i);
+    }
+    let head: Vec<String> = ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
+    let path = opts.out.join(ONSET_FILE);
+    let (mut file, done_rows) = RowFile::open(&path, &head)?;
+    let done: HashSet<String> = done_rows.iter().map(|r| r[0].clone()).collect();
+    let todo: Vec<_> = all
+        .into_iter()
+        .filter(|g| !done.contains(&g.id()))
+        .collect();
+    if !opts.quiet && !todo.is_empty() {
+        eprintln!(
+            "gripsweep: slip-onset study, {} groups by bisection",
+            todo.len()
+        );
+    }
+    let mut err = None;
+    parallel_units(
+        opts.threads,
+        &todo,
+        |g| bisect(s, robot, o, g, floor),
+        |_, i, (deg, runs)| {
+            if err.is_none()
+                && let Err(e) = file.append(&record(&todo[i], deg, runs))
+            {
+                err = Some(format!("{}: {e}", path.display()));
+            }
+        },
+    )?;
+    if let Some(e) = err {
+        return Err(e);
+    }
+    let (_, mut rows) = read_rows(&path)?;
+    rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
+    write_sorted(&path, &head, &rows)
 }
 
 fn progress_bar(len: u64, pos: u64, quiet: bool) -> ProgressBar {
@@ -645,8 +722,51 @@ pub fn merge(
     });
     let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
     write_sorted(&out.join(TIMING_FILE), &timing_head, &all_timing).map_err(RunError::other)?;
+    // The slip-onset study, when the scenario has one: every shard's groups, complete.
+    if shards[0]
+        .1
+        .get("onset_groups")
+        .is_some_and(|v| !v.is_null())
+    {
+        use crate::onset::{ONSET_COLUMNS, ONSET_FILE};
+        let mut rows = Vec::new();
+        let mut short = Vec::new();
+        for (d, m, i, _, _) in &shards {
+            let want = m["onset_groups"].as_u64().unwrap_or(0) as usize;
+            let got = read_rows(&d.join(ONSET_FILE))
+                .map(|(_, r)| r)
+                .unwrap_or_default();
+            if got.len() != want {
+                short.push(format!(
+                    "{}/{k} ({} of {want} onset groups, in {})",
+                    i + 1,
+                    got.len(),
+                    d.display()
+                ));
+            }
+            rows.extend(got);
+        }
+        if !short.is_empty() {
+            let _ = std::fs::remove_dir_all(out);
+            return Err(RunError::input(format!(
+                "merge: incomplete slip-onset study in shard(s) {}; resume them and merge again",
+                short.join(", ")
+            )));
+        }
+        rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
+        let head: Vec<String> = ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
+        write_sorted(&out.join(ONSET_FILE), &head, &rows).map_err(RunError::other)?;
+    }
     let mut man = shards[0].1.clone();
     man["shard"] = Value::Null;
+    if man.get("onset_groups").is_some() {
+        man["onset_groups"] = json!(
+            shards
+                .iter()
+                .map(|x| x.1["onset_groups"].as_u64().unwrap_or(0))
+                .sum::<u64>()
+        );
+    }
     man["merged_from"] = json!(
         dirs.iter()
             .map(|d| d.display().to_string())
