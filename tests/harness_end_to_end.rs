@@ -452,3 +452,29 @@ fn check_and_trace_work_on_a_small_scenario() {
     assert_eq!(o.status.code(), Some(2));
     let _ = std::fs::remove_dir_all(&d);
 }
+
+#[test]
+fn every_shipped_scenario_is_valid_and_plans_on_every_slope() {
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios");
+    let mut n = 0;
+    for entry in std::fs::read_dir(&dir).unwrap() {
+        let p = entry.unwrap().path();
+        if p.extension().is_some_and(|e| e == "toml") {
+            let s = gripsweep::scenario::Scenario::from_file(&p).unwrap_or_else(|e| panic!("{e}"));
+            let robot = s.load_robot().unwrap();
+            s.check_plans(&robot).unwrap_or_else(|e| panic!("{e}"));
+            assert!(s.cell_count() > 0);
+            n += 1;
+        }
+    }
+    assert!(
+        n >= 5,
+        "expected the default, quick, weight-shift, rate-and-sensing and onset scenarios"
+    );
+    // The embedded default is the file on disk.
+    let embedded = gripsweep::scenario::Scenario::default_embedded().unwrap();
+    assert_eq!(
+        embedded.text,
+        std::fs::read_to_string(dir.join("default.toml")).unwrap()
+    );
+}

@@ -94,9 +94,10 @@ pub fn forward_kinematics(model: &Model, ws: &mut Workspace, q: &DVector<f64>) {
         ws.x_up[i] = match j.kind {
             JointKind::Revolute => {
                 let (s, c) = qk.sin_cos();
-                let ax = skew(&j.axis);
-                // Rodrigues: R = I + sin q [a]× + (1 − cos q)[a]×², |a| = 1.
-                let r = nalgebra::Matrix3::identity() + ax * s + ax * ax * (1.0 - c);
+                // Rodrigues: R = cos q I + sin q [a]× + (1 − cos q) a aᵀ, |a| = 1.
+                let r = nalgebra::Matrix3::from_diagonal_element(c)
+                    + skew(&j.axis) * s
+                    + j.axis * j.axis.transpose() * (1.0 - c);
                 Pose::new(j.x_tree.rot * r, j.x_tree.trans)
             }
             JointKind::Prismatic => {

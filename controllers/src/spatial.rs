@@ -255,12 +255,18 @@ impl Inertia {
     pub fn to_parent(&self, x: &Pose) -> Inertia {
         let h_rot = x.rot * self.h;
         let i_rot = x.rot * self.i_o * x.rot.transpose();
-        let px = skew(&x.trans);
-        let hx = skew(&h_rot);
+        let p = &x.trans;
+        // With [a]×[b]× = b aᵀ − (a·b) I the shift is
+        // (m p·p + 2 p·h') I − (m p + h') pᵀ − p h'ᵀ: two outer products instead of three 3×3
+        // matrix products.
+        let diag = self.mass * p.dot(p) + 2.0 * p.dot(&h_rot);
+        let shift = Mat3::from_diagonal_element(diag)
+            - (p * self.mass + h_rot) * p.transpose()
+            - p * h_rot.transpose();
         Inertia {
             mass: self.mass,
-            h: h_rot + x.trans * self.mass,
-            i_o: i_rot - px * px * self.mass - px * hx - hx * px,
+            h: h_rot + p * self.mass,
+            i_o: i_rot + shift,
         }
     }
 

@@ -216,6 +216,7 @@ fn simulate(
     let start = Vec3::new(q[0], q[1], q[2]);
     let mut acc = MetricsAccumulator::new(feet.len(), dt, cell.mu, start);
     let mut sample: PlanSample = plan.new_sample();
+    let mut reached: PlanSample = plan.new_sample();
     let mut command = vec![0.0; nj];
     let mut applied = vec![0.0; nj];
     let (mut q_obs, mut v_obs) = (q.clone(), v.clone());
@@ -288,10 +289,12 @@ fn simulate(
             break;
         }
         plant.state(&mut q, &mut v);
+        // Tracking against the plan at the time the plant has reached, t + dt.
+        plan.sample(t + dt, &mut reached);
         let base = base_pose(model, &q);
-        let plan_base = base_pose(model, &sample.q);
+        let plan_base = base_pose(model, &reached.q);
         for k in 0..nj {
-            joint_err[k] = q[7 + k] - sample.q[7 + k];
+            joint_err[k] = q[7 + k] - reached.q[7 + k];
         }
         acc.step(
             &sample.stance,

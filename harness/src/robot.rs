@@ -64,8 +64,8 @@ impl LoadedRobot {
     ) -> Result<LoadedRobot, String> {
         let facts =
             RobotFacts::from_toml_str(facts_text).map_err(|e| format!("{facts_name}: {e}"))?;
-        let urdf = urdf_rs::read_from_string(urdf_text)
-            .map_err(|e| format!("{urdf_name}: not a readable URDF: {e}"))?;
+        let urdf = gripsweep_controllers::model::parse_urdf(urdf_text)
+            .map_err(|e| format!("{urdf_name}: {e}"))?;
         let mut model =
             Model::from_urdf(&urdf, RootKind::Floating).map_err(|e| format!("{urdf_name}: {e}"))?;
         facts
