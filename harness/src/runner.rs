@@ -269,9 +269,12 @@ fn read_manifest(dir: &Path) -> Result<Value, String> {
 }
 
 fn write_manifest(dir: &Path, m: &Value) -> Result<(), String> {
+    // Written to a temporary file and renamed, so a kill never leaves a torn manifest.
     let p = dir.join(MANIFEST_FILE);
+    let tmp = dir.join("manifest.json.tmp");
     let text = serde_json::to_string_pretty(m).expect("json");
-    std::fs::write(&p, text + "\n").map_err(|e| format!("{}: {e}", p.display()))
+    std::fs::write(&tmp, text + "\n").map_err(|e| format!("{}: {e}", tmp.display()))?;
+    std::fs::rename(&tmp, &p).map_err(|e| format!("{}: {e}", p.display()))
 }
 
 /// The apparent slip of feet that do not move, for this scenario's plant settings: the robot
