@@ -409,3 +409,64 @@ fn joint_friction_at_constant_velocity_is_the_configured_value() {
         .friction();
     assert!((open.0 / sensed.0 - 10.0).abs() < 1e-12 && (open.1 / sensed.1 - 10.0).abs() < 1e-12);
 }
+
+#[test]
+fn plant_state_round_trips_in_model_conventions() {
+    // set_state then state gives back (q, v): base pose and body-frame twist through the
+    // plant's centre-of-mass root, joint angles and rates through the engine's coordinates;
+    // and the plant's foot centres are where the model's kinematics puts them.
+    let robot = LoadedRobot::demo().unwrap();
+    let model = &robot.model;
+    let mut ws = Workspace::new(model);
+    let (q0, _) = nominal_state(&robot);
+    for trial in 0..5 {
+        let s = trial as f64;
+        let mut q = q0.clone();
+        q[0] = 0.3 * s;
+        q[1] = -0.1;
+        q[2] = 1.5;
+        let quat = nalgebra::UnitQuaternion::from_euler_angles(0.2 - 0.1 * s, 0.3, -0.4 * s);
+        q[3] = quat.i;
+        q[4] = quat.j;
+        q[5] = quat.k;
+        q[6] = quat.w;
+        for k in 0..12 {
+            q[7 + k] += 0.1 * ((k as f64) + s).sin();
+        }
+        let v = DVector::from_fn(model.nv(), |i, _| ((i as f64) * 0.7 + s).cos());
+        let mut plant = Plant::new(
+            &robot,
+            Box::new(Slope::degrees(0.0)),
+            1.0,
+            PlantSettings::default(),
+        );
+        plant.set_state(&q, &v);
+        let (mut q1, mut v1) = (q.clone(), v.clone());
+        plant.state(&mut q1, &mut v1);
+        // The quaternion may come back negated (same rotation).
+        let sign = if q1.rows(3, 4).dot(&q.rows(3, 4)) < 0.0 {
+            -1.0
+        } else {
+            1.0
+        };
+        for i in 3..7 {
+            q1[i] *= sign;
+        }
+        assert!(
+            (&q1 - &q).amax() < 1e-12,
+            "q differs by {}",
+            (&q1 - &q).amax()
+        );
+        assert!(
+            (&v1 - &v).amax() < 1e-12,
+            "v differs by {}",
+            (&v1 - &v).amax()
+        );
+        gripsweep_controllers::algorithms::forward_kinematics(model, &mut ws, &q);
+        for (i, f) in robot.foot_frames().iter().enumerate() {
+            let p = gripsweep_controllers::algorithms::frame_pose(model, &ws, *f).trans;
+            let c = plant.feet()[i].centre;
+            assert!((p - c).norm() < 1e-12, "foot {i}: model {p:?}, plant {c:?}");
+        }
+    }
+}

@@ -480,8 +480,9 @@ impl Plant {
         mb.update_rigid_bodies(&mut self.world.bodies, true);
         self.index_dofs();
         self.sync_body_velocities();
-        // Fresh contacts for the new pose.
+        // Fresh contacts for the new pose, and read-outs (positions) that match it.
         self.world.detect_collisions(&(), &());
+        self.read_contacts();
     }
 
     /// The engine stores link velocities on the rigid bodies after a step; after a manual state
