@@ -220,17 +220,7 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
 /// The cell of the scenario matching `picks` (AXIS=VALUE); unspecified axes: first value.
 pub fn pick_cell(s: &Scenario, picks: &[String]) -> Result<Cell, RunError> {
     let mut want: Vec<(String, String)> = Vec::new();
-    const AXES: [&str; 9] = [
-        "slope_deg",
-        "mu",
-        "rate_hz",
-        "actuator",
-        "controller",
-        "mass_scale",
-        "com_shift_mm",
-        "sensor_noise",
-        "seed",
-    ];
+    const AXES: [&str; 9] = crate::matrix::AXIS_NAMES;
     for p in picks {
         let Some((k, v)) = p.split_once('=') else {
             return Err(RunError::input(format!(

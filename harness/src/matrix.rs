@@ -6,6 +6,19 @@ use crate::plant::actuator::ActuatorKind;
 use crate::scenario::Scenario;
 use sha2::{Digest, Sha256};
 
+/// The axes of the matrix, as users name them (scenario fields, `cells.csv` columns, `--pick`).
+pub const AXIS_NAMES: [&str; 9] = [
+    "slope_deg",
+    "mu",
+    "rate_hz",
+    "actuator",
+    "controller",
+    "mass_scale",
+    "com_shift_mm",
+    "sensor_noise",
+    "seed",
+];
+
 #[derive(Clone, Debug, PartialEq)]
 pub struct Cell {
     /// Position in the matrix (the order of rows in a finished `cells.csv`).

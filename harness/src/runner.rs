@@ -24,20 +24,6 @@ pub const CELLS_FILE: &str = "cells.csv";
 pub const TIMING_FILE: &str = "timing.csv";
 pub const MANIFEST_FILE: &str = "manifest.json";
 
-/// The axis columns of `cells.csv`, before the status and metric columns.
-pub const AXIS_COLUMNS: [&str; 11] = [
-    "cell_id",
-    "index",
-    "slope_deg",
-    "mu",
-    "rate_hz",
-    "actuator",
-    "controller",
-    "mass_scale",
-    "com_shift_mm",
-    "sensor_noise",
-    "seed",
-];
 pub const TIMING_COLUMNS: [&str; 4] = ["cell_id", "compute_median_us", "compute_p99_us", "wall_s"];
 
 /// A run failure, with the exit code the command should end with (2: bad input or an output
@@ -87,7 +73,12 @@ pub struct RunSummary {
 }
 
 fn header() -> Vec<String> {
-    let mut h: Vec<String> = AXIS_COLUMNS.iter().map(|s| s.to_string()).collect();
+    // Identity, the axes (crate::matrix::AXIS_NAMES), the outcome, the metrics.
+    let mut h: Vec<String> = ["cell_id", "index"]
+        .iter()
+        .chain(crate::matrix::AXIS_NAMES.iter())
+        .map(|s| s.to_string())
+        .collect();
     h.push("status".into());
     h.push("message".into());
     h.extend(CellMetrics::COLUMNS.iter().map(|s| s.to_string()));

@@ -50,7 +50,6 @@ pub struct ConeMargin {
     a_vals: Vec<f64>,
     /// G = J_cᵀ · blkdiag(surface frames): generalized force of surface-frame foot forces.
     g: DMatrix<f64>,
-    expected_load: Vec<f64>,
     tau_limit: Vec<f64>,
     /// Last slack norm (for tests and traces).
     pub last_slack: f64,
@@ -85,7 +84,6 @@ impl ConeMargin {
             p_vals: Vec::with_capacity((3 * nf + 6) * (3 * nf + 7) / 2),
             a_vals: Vec::with_capacity((6 + nf + 2 * nj + 3 * nf) * (3 * nf + 6)),
             g: DMatrix::zeros(nv, 3 * nf),
-            expected_load: vec![f64::NAN; nf],
             tau_limit,
             last_slack: 0.0,
             lambda_s: Vec::with_capacity(3 * nf),
@@ -127,22 +125,13 @@ impl ConeMargin {
             }
         }
         let set = &body.settings;
-        let weight = body.model.total_mass() * body.model.gravity.norm();
-        let f_ref = weight / k.max(1) as f64;
         let wt = set.torque_weight;
         self.p_dense.view_mut((0, 0), (nx, nx)).fill(0.0);
         for c in 0..k {
-            let foot = body.stance[c];
-            let expected = self.expected_load[foot];
-            let f_hat = if expected.is_finite() {
-                expected.max(set.load_floor_share * f_ref)
-            } else {
-                f_ref
-            };
             // Weight ∝ 1/f̂ (not 1/f̂²): minimising Σ w_f ‖λ_t,f‖² under a fixed total
             // tangential load gives λ_t,f ∝ 1/w_f = f̂_f, i.e. the same ‖λ_t‖/λ_n at every foot
             // once f̂ settles on the solution — the largest friction margin for that load.
-            let w_t = set.tangent_weight * (f_ref / f_hat);
+            let w_t = body.load_weight(body.stance[c], k, set.tangent_weight, 1);
             self.p_dense[(3 * c, 3 * c)] = 2.0 * set.normal_weight;
             self.p_dense[(3 * c + 1, 3 * c + 1)] = 2.0 * w_t;
             self.p_dense[(3 * c + 2, 3 * c + 2)] = 2.0 * w_t;
@@ -413,14 +402,7 @@ impl ControlLaw for ConeMargin {
             }
             return LawStatus::Failed;
         }
-        let n = self.body.settings.ground_normal.normalize();
-        for (i, f) in self.body.forces.iter().enumerate() {
-            self.expected_load[i] = if target.stance[i] {
-                f.dot(&n)
-            } else {
-                f64::NAN
-            };
-        }
+        self.body.remember_loads(target.stance);
         self.body.output_with_joint_pd(obs, target, tau);
         status
     }

@@ -33,8 +33,6 @@ pub struct IdGrip {
     kkt: DMatrix<f64>,
     kkt_rhs: Vec<f64>,
     col: Vec<f64>,
-    /// Expected normal load per foot for the load-normalised weights (N); NaN until known.
-    expected_load: Vec<f64>,
 }
 
 impl IdGrip {
@@ -57,7 +55,6 @@ impl IdGrip {
             kkt: DMatrix::zeros(nj + nv, nj + nv),
             kkt_rhs: vec![0.0; nj + nv],
             col: vec![0.0; 3 * nf],
-            expected_load: vec![f64::NAN; nf],
         }
     }
     pub fn boxed_published(
@@ -80,19 +77,11 @@ impl IdGrip {
         let s = &self.body.settings;
         let n = s.ground_normal.normalize();
         let nnt = n * n.transpose();
-        let mut w_t = s.tangent_weight;
-        if self.load_normalised {
-            let weight = self.body.model.total_mass() * self.body.model.gravity.norm();
-            let f_ref = weight / k as f64;
-            let floor = s.load_floor_share * f_ref;
-            let expected = self.expected_load[foot];
-            let f_hat = if expected.is_finite() {
-                expected.max(floor)
-            } else {
-                f_ref
-            };
-            w_t *= (f_ref / f_hat).powi(2);
-        }
+        let w_t = if self.load_normalised {
+            self.body.load_weight(foot, k, s.tangent_weight, 2)
+        } else {
+            s.tangent_weight
+        };
         (Mat3::identity() - nnt) * w_t + nnt * s.normal_weight
     }
 
@@ -198,14 +187,7 @@ impl ControlLaw for IdGrip {
             return status;
         }
         self.body.predict_forces();
-        let n = self.body.settings.ground_normal.normalize();
-        for (i, f) in self.body.forces.iter().enumerate() {
-            self.expected_load[i] = if target.stance[i] {
-                f.dot(&n)
-            } else {
-                f64::NAN
-            };
-        }
+        self.body.remember_loads(target.stance);
         self.body.output_with_joint_pd(obs, target, tau);
         status
     }

@@ -56,6 +56,9 @@ pub struct WholeBody {
     pub lambda: DVector<f64>,
     /// Predicted force per foot (world), zero in swing.
     pub forces: Vec<Vec3>,
+    /// Each foot's normal load predicted at the last step it was in stance (NaN otherwise): the
+    /// expected load f̂_n of the load-normalised weights.
+    pub expected_load: Vec<f64>,
     scratch_n: DMatrix<f64>,
     scratch_v: Vec<f64>,
     scratch_c: Vec<f64>,
@@ -92,6 +95,7 @@ impl WholeBody {
             tau_id: DVector::zeros(nj),
             lambda: DVector::zeros(3 * nf),
             forces: vec![Vec3::zeros(); nf],
+            expected_load: vec![f64::NAN; nf],
             scratch_n: DMatrix::zeros(nv.max(nj), nv.max(nj)),
             scratch_v: vec![0.0; nv.max(nj)],
             scratch_c: vec![0.0; 3 * nf],
@@ -310,6 +314,29 @@ impl WholeBody {
                 self.lambda[3 * c + 2],
             );
         }
+    }
+
+    /// Remember this step's predicted normal loads for the next step's load-normalised weights.
+    pub fn remember_loads(&mut self, stance: &[bool]) {
+        let n = self.settings.ground_normal.normalize();
+        for (i, f) in self.forces.iter().enumerate() {
+            self.expected_load[i] = if stance[i] { f.dot(&n) } else { f64::NAN };
+        }
+    }
+
+    /// The load-normalised tangential weight of stance foot `foot` among `k`: `base` ×
+    /// (f_ref / f̂_n)^power, f_ref the robot's weight over k, f̂_n its expected load floored at
+    /// `load_floor_share` of f_ref (f_ref until known).
+    pub fn load_weight(&self, foot: usize, k: usize, base: f64, power: i32) -> f64 {
+        let weight = self.model.total_mass() * self.model.gravity.norm();
+        let f_ref = weight / k.max(1) as f64;
+        let expected = self.expected_load[foot];
+        let f_hat = if expected.is_finite() {
+            expected.max(self.settings.load_floor_share * f_ref)
+        } else {
+            f_ref
+        };
+        base * (f_ref / f_hat).powi(power)
     }
 
     /// τ_out = τ_id + K_p (q_plan − q) + K_d (v_plan − v) on the joints: the low-gain joint
