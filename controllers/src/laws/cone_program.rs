@@ -37,6 +37,9 @@ const RELAXED_FEASIBLE_SLACK: f64 = 1e-3;
 
 /// One solver per (number of stance feet, strict or relaxed): the problem's sparsity pattern
 /// depends only on those, so later steps update the data in place instead of rebuilding.
+/// A sparsity pattern in compressed-column form: (column pointers, row indices).
+type Pattern = (Vec<usize>, Vec<usize>);
+
 struct CachedSolver {
     /// Stance feet (bit per foot) and whether the program is the relaxed one.
     stance_mask: u64,
@@ -45,8 +48,8 @@ struct CachedSolver {
     limits: bool,
     solver: DefaultSolver<f64>,
     /// The structural sparsity (CSC) of P's upper triangle and of A for this stance set.
-    p_pattern: (Vec<usize>, Vec<usize>),
-    a_pattern: (Vec<usize>, Vec<usize>),
+    p_pattern: Pattern,
+    a_pattern: Pattern,
 }
 
 pub struct ConeMargin {
@@ -222,11 +225,7 @@ impl ConeMargin {
     /// rows are dense, a torque row touches only its own leg's foot, and every cone and
     /// minimum-force row one force component. A sparse KKT system is what makes the solver
     /// fast here (dense patterns measured ~5× slower).
-    fn structure(
-        &self,
-        relaxed: bool,
-        limits: bool,
-    ) -> ((Vec<usize>, Vec<usize>), (Vec<usize>, Vec<usize>)) {
+    fn structure(&self, relaxed: bool, limits: bool) -> (Pattern, Pattern) {
         let body = &self.body;
         let k = body.k;
         let nj = if limits { body.nj } else { 0 };
@@ -280,15 +279,14 @@ impl ConeMargin {
             .iter()
             .position(|c| c.stance_mask == mask && c.relaxed == relaxed && c.limits == limits);
         // Values in the cached sparsity pattern (no allocation once the vectors have grown).
-        let fill =
-            |vals: &mut Vec<f64>, pattern: &(Vec<usize>, Vec<usize>), dense: &DMatrix<f64>| {
-                vals.clear();
-                for col in 0..pattern.0.len() - 1 {
-                    for &row in &pattern.1[pattern.0[col]..pattern.0[col + 1]] {
-                        vals.push(dense[(row, col)]);
-                    }
+        let fill = |vals: &mut Vec<f64>, pattern: &Pattern, dense: &DMatrix<f64>| {
+            vals.clear();
+            for col in 0..pattern.0.len() - 1 {
+                for &row in &pattern.1[pattern.0[col]..pattern.0[col + 1]] {
+                    vals.push(dense[(row, col)]);
                 }
-            };
+            }
+        };
         let i = match slot {
             Some(i) => {
                 let c = &mut self.solvers[i];
