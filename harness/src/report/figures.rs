@@ -137,8 +137,13 @@ pub fn plan(study: &Study, computed: &Computed) -> Planned {
 }
 
 /// Shortest display of a number (no trailing zeros beyond what it needs).
+/// Three significant digits for labels (the tables carry the full numbers).
 fn short(v: f64) -> String {
-    format!("{v}")
+    if v == 0.0 || !v.is_finite() {
+        return format!("{v}");
+    }
+    let digits = (2 - v.abs().log10().floor() as i32).max(0) as usize;
+    format!("{v:.digits$}")
 }
 
 fn friction_lines(
