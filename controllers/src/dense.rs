@@ -21,62 +21,54 @@ pub fn householder_qr(
     v: &mut DMatrix<f64>,
 ) -> f64 {
     debug_assert!(m >= n && q.nrows() >= m && q.ncols() >= m && v.nrows() >= m && v.ncols() >= n);
+    // Column-major slices: column c of a matrix with `ld` rows starts at c · ld. Columns are
+    // contiguous, so every inner loop below runs over one contiguous stretch.
+    let (lda, ldq, ldv) = (a.nrows(), q.nrows(), v.nrows());
+    let a = a.as_mut_slice();
+    let q = q.as_mut_slice();
+    let v = v.as_mut_slice();
     let mut min_diag = f64::INFINITY;
     for j in 0..n {
-        let mut norm2 = 0.0;
-        for i in j..m {
-            norm2 += a[(i, j)] * a[(i, j)];
-        }
-        let norm = norm2.sqrt();
-        let x0 = a[(j, j)];
+        let aj = &a[j * lda..j * lda + m];
+        let norm = aj[j..].iter().map(|x| x * x).sum::<f64>().sqrt();
+        let x0 = aj[j];
         let alpha = if x0 >= 0.0 { -norm } else { norm };
         // v = x − α e₁, normalised; skip when the column is already zero below the diagonal.
-        let mut vnorm2 = 0.0;
-        for i in 0..m {
-            let vi = if i < j {
-                0.0
-            } else if i == j {
-                x0 - alpha
-            } else {
-                a[(i, j)]
-            };
-            v[(i, j)] = vi;
-            vnorm2 += vi * vi;
-        }
+        let vj = &mut v[j * ldv..j * ldv + m];
+        vj[..j].fill(0.0);
+        vj[j] = x0 - alpha;
+        vj[j + 1..].copy_from_slice(&aj[j + 1..]);
+        let vnorm2: f64 = vj[j..].iter().map(|x| x * x).sum();
         if vnorm2 > 0.0 {
             let inv = 1.0 / vnorm2.sqrt();
-            for i in j..m {
-                v[(i, j)] *= inv;
-            }
+            vj[j..].iter_mut().for_each(|x| *x *= inv);
             // A[j.., j..] −= 2 v (vᵀ A[j.., j..])
+            let vj = &v[j * ldv + j..j * ldv + m];
             for c in j..n {
-                let mut dot = 0.0;
-                for i in j..m {
-                    dot += v[(i, j)] * a[(i, c)];
-                }
-                for i in j..m {
-                    a[(i, c)] -= 2.0 * v[(i, j)] * dot;
-                }
+                let col = &mut a[c * lda + j..c * lda + m];
+                let dot: f64 = vj.iter().zip(col.iter()).map(|(x, y)| x * y).sum();
+                col.iter_mut()
+                    .zip(vj)
+                    .for_each(|(y, x)| *y -= 2.0 * dot * x);
             }
         }
-        min_diag = min_diag.min(a[(j, j)].abs());
+        min_diag = min_diag.min(a[j * lda + j].abs());
     }
     // Q = H₀ H₁ … H_{n−1} applied to the identity, last reflector first.
-    for r in 0..m {
-        for c in 0..m {
-            q[(r, c)] = if r == c { 1.0 } else { 0.0 };
-        }
+    for c in 0..m {
+        let col = &mut q[c * ldq..c * ldq + m];
+        col.fill(0.0);
+        col[c] = 1.0;
     }
     for j in (0..n).rev() {
+        let vj = &v[j * ldv + j..j * ldv + m];
         for c in 0..m {
-            let mut dot = 0.0;
-            for i in j..m {
-                dot += v[(i, j)] * q[(i, c)];
-            }
+            let col = &mut q[c * ldq + j..c * ldq + m];
+            let dot: f64 = vj.iter().zip(col.iter()).map(|(x, y)| x * y).sum();
             if dot != 0.0 {
-                for i in j..m {
-                    q[(i, c)] -= 2.0 * v[(i, j)] * dot;
-                }
+                col.iter_mut()
+                    .zip(vj)
+                    .for_each(|(y, x)| *y -= 2.0 * dot * x);
             }
         }
     }
