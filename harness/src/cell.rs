@@ -136,10 +136,21 @@ fn add_noise(
 pub fn run_cell(
     ctx: &CellContext,
     cell: &Cell,
+    trace: Option<(&mut Vec<TraceRow>, usize)>,
+) -> CellOutcome {
+    run_cell_with_plan(ctx, cell, None, trace)
+}
+
+/// [`run_cell`] with a plan built beforehand for the cell's slope (plans depend only on the
+/// robot, the slope, the gait and the duration, so a run builds one per slope and shares it).
+pub fn run_cell_with_plan(
+    ctx: &CellContext,
+    cell: &Cell,
+    plan: Option<&Plan>,
     mut trace: Option<(&mut Vec<TraceRow>, usize)>,
 ) -> CellOutcome {
     let wall = Instant::now();
-    let mut outcome = simulate(ctx, cell, trace.as_mut().map(|(v, e)| (&mut **v, *e)));
+    let mut outcome = simulate(ctx, cell, plan, trace.as_mut().map(|(v, e)| (&mut **v, *e)));
     outcome.wall_s = wall.elapsed().as_secs_f64();
     outcome
 }
@@ -163,15 +174,23 @@ fn error_outcome(message: String) -> CellOutcome {
 fn simulate(
     ctx: &CellContext,
     cell: &Cell,
+    shared: Option<&Plan>,
     mut trace: Option<(&mut Vec<TraceRow>, usize)>,
 ) -> CellOutcome {
     let s = ctx.scenario;
     let robot = ctx.robot;
     let model = &robot.model;
     let slope = Slope::degrees(cell.slope_deg);
-    let plan = match Plan::build(model, &robot.facts, &slope, &s.gait, s.duration) {
-        Ok(p) => p,
-        Err(e) => return error_outcome(format!("plan: {e}")),
+    let built;
+    let plan = match shared {
+        Some(p) => p,
+        None => match Plan::build(model, &robot.facts, &slope, &s.gait, s.duration) {
+            Ok(p) => {
+                built = p;
+                &built
+            }
+            Err(e) => return error_outcome(format!("plan: {e}")),
+        },
     };
     let settings: PlantSettings = s.plant;
     let dt = settings.dt;

@@ -2,7 +2,7 @@
 //! (flushed and synced, so a killed run loses nothing), resume without losing or doubling a
 //! cell, deterministic shards, and `merge` of shard folders into what one process would give.
 
-use crate::cell::{CellContext, CellOutcome, run_cell};
+use crate::cell::{CellContext, CellOutcome, run_cell, run_cell_with_plan};
 use crate::matrix::{Cell, expand, shard};
 use crate::metrics::{CellMetrics, CellStatus};
 use crate::planner::Gait;
@@ -389,10 +389,24 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     let mut write_error = None;
     let mut plain_last = Instant::now();
     let n_todo = todo.len();
+    // One plan per slope, shared by every cell on it (a plan does not depend on the other
+    // axes); a slope whose plan fails is left to its cells, which report it as an error.
+    let plans: Vec<(f64, crate::planner::Plan)> = s
+        .axes
+        .slope_deg
+        .iter()
+        .filter_map(|&deg| {
+            let slope = crate::plant::terrain::Slope::degrees(deg);
+            crate::planner::Plan::build(&robot.model, &robot.facts, &slope, &s.gait, s.duration)
+                .ok()
+                .map(|p| (deg, p))
+        })
+        .collect();
+    let plan_for = |deg: f64| plans.iter().find(|(d, _)| *d == deg).map(|(_, p)| p);
     parallel_units(
         opts.threads,
         &todo,
-        |cell| run_cell(&ctx, cell, None),
+        |cell| run_cell_with_plan(&ctx, cell, plan_for(cell.slope_deg), None),
         |done_now, i, outcome| {
             let cell = todo[i];
             if outcome.status != CellStatus::Ok {
@@ -479,6 +493,9 @@ fn parallel_units<U: Sync, R: Send>(
             pool.install(|| {
                 units
                     .par_iter()
+                    // One unit per task: rayon's default splits handed a thread long runs of
+                    // cells, which left one core idle at the end of a run.
+                    .with_max_len(1)
                     .enumerate()
                     .for_each_with(tx, |tx, (i, u)| {
                         let _ = tx.send((i, work(u)));
