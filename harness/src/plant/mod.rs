@@ -350,29 +350,16 @@ impl Plant {
     }
 
     fn multibody(&self) -> &Multibody {
-        self.world
-            .multibody_joints
-            .get(self.mb_handle)
-            .expect("built")
-            .0
+        mb_ref(&self.world.multibody_joints, self.mb_handle)
     }
     fn multibody_mut(&mut self) -> &mut Multibody {
-        self.world
-            .multibody_joints
-            .get_mut(self.mb_handle)
-            .expect("built")
-            .0
+        mb_mut(&mut self.world.multibody_joints, self.mb_handle)
     }
 
     /// Refresh the engine's link ids and DOF indices (a fixed root re-indexes them once).
     fn index_dofs(&mut self) {
         let bodies_handles = self.bodies.clone();
-        let mb = self
-            .world
-            .multibody_joints
-            .get_mut(self.mb_handle)
-            .expect("built")
-            .0;
+        let mb = mb_mut(&mut self.world.multibody_joints, self.mb_handle);
         mb.forward_kinematics(&self.world.bodies, true);
         let link_of = |h: RigidBodyHandle| {
             mb.links()
@@ -418,12 +405,7 @@ impl Plant {
         let kinds = self.joint_kinds.clone();
         let base_com = self.base_com;
         let root_body = self.bodies[0];
-        let mb = self
-            .world
-            .multibody_joints
-            .get_mut(self.mb_handle)
-            .expect("built")
-            .0;
+        let mb = mb_mut(&mut self.world.multibody_joints, self.mb_handle);
         let mut disp = vec![0.0; mb.ndofs()];
         for k in 0..nj {
             let link = mb
@@ -446,12 +428,7 @@ impl Plant {
             let base = base_pose_of(&mut qb);
             let root = base.compose(&MPose::new(Mat3::identity(), base_com));
             self.world.bodies[root_body].set_position(to_pose(&root), true);
-            let mb = self
-                .world
-                .multibody_joints
-                .get_mut(self.mb_handle)
-                .expect("built")
-                .0;
+            let mb = mb_mut(&mut self.world.multibody_joints, self.mb_handle);
             mb.forward_kinematics(&self.world.bodies, true);
             let w_b = Vec3::new(v[3], v[4], v[5]);
             let v_b = Vec3::new(v[0], v[1], v[2]);
@@ -464,12 +441,7 @@ impl Plant {
                 gv[3 + r] = w[r];
             }
         }
-        let mb = self
-            .world
-            .multibody_joints
-            .get_mut(self.mb_handle)
-            .expect("built")
-            .0;
+        let mb = mb_mut(&mut self.world.multibody_joints, self.mb_handle);
         mb.forward_kinematics(&self.world.bodies, true);
         {
             let mut gv = mb.generalized_velocity_mut();
@@ -488,12 +460,7 @@ impl Plant {
     /// The engine stores link velocities on the rigid bodies after a step; after a manual state
     /// change, copy them from the multibody so velocity read-outs agree.
     fn sync_body_velocities(&mut self) {
-        let mb = self
-            .world
-            .multibody_joints
-            .get(self.mb_handle)
-            .expect("built")
-            .0;
+        let mb = mb_ref(&self.world.multibody_joints, self.mb_handle);
         mb.update_rigid_bodies(&mut self.world.bodies, false);
     }
 
@@ -542,12 +509,7 @@ impl Plant {
             rb.reset_forces(false);
             rb.reset_torques(false);
         }
-        let mb = self
-            .world
-            .multibody_joints
-            .get(self.mb_handle)
-            .expect("built")
-            .0;
+        let mb = mb_ref(&self.world.multibody_joints, self.mb_handle);
         for k in 0..self.tau.len() {
             let child = self.bodies[k + 1];
             let parent = self.bodies[self.parents[k]];
@@ -658,6 +620,19 @@ impl Plant {
     pub fn body_touching_ground(&self) -> bool {
         self.other_contact
     }
+}
+
+/// The robot's multibody in its set; free functions so a caller can hold it while borrowing
+/// the rigid-body set (a disjoint field of the world).
+fn mb_ref(set: &MultibodyJointSet, h: MultibodyJointHandle) -> &Multibody {
+    set.get(h)
+        .expect("the plant's multibody exists for its lifetime")
+        .0
+}
+fn mb_mut(set: &mut MultibodyJointSet, h: MultibodyJointHandle) -> &mut Multibody {
+    set.get_mut(h)
+        .expect("the plant's multibody exists for its lifetime")
+        .0
 }
 
 /// An empty world with the plant's engine settings; tests of the engine (a block on the

@@ -314,6 +314,27 @@ fn err<E: std::fmt::Display>(what: &str) -> impl Fn(E) -> String + '_ {
     move |e| format!("{what}: drawing failed: {e}")
 }
 
+/// The paper background, the header, and the area below it where a figure draws its panels.
+fn framed_body<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    stem: &str,
+    title: &str,
+    subtitle: &str,
+    legend: &[(LegendKey, String)],
+    width: u32,
+) -> Result<DrawingArea<DB, Shift>, String> {
+    root.fill(&PAPER)
+        .map_err(err::<DrawingAreaErrorKind<DB::ErrorType>>(stem))?;
+    draw_header(root, title, subtitle, legend)?;
+    let labels: Vec<String> = legend.iter().map(|(_, l)| l.clone()).collect();
+    Ok(root.margin(
+        header_height(subtitle, &labels, width),
+        MARGIN / 2,
+        MARGIN / 2,
+        MARGIN / 2,
+    ))
+}
+
 /// Title, subtitle and legend strip.
 fn draw_header<DB: DrawingBackend>(
     root: &DrawingArea<DB, Shift>,
@@ -670,17 +691,14 @@ impl LineFigure {
 
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let e = err::<DrawingAreaErrorKind<DB::ErrorType>>(&self.stem);
-        root.fill(&PAPER).map_err(&e)?;
-        let legend = self.legend();
-        draw_header(root, &self.title, &self.subtitle, &legend)?;
-        let (w, _) = self.size();
-        let labels: Vec<String> = legend.iter().map(|(_, l)| l.clone()).collect();
-        let body = root.margin(
-            header_height(&self.subtitle, &labels, w),
-            MARGIN / 2,
-            MARGIN / 2,
-            MARGIN / 2,
-        );
+        let body = framed_body(
+            root,
+            &self.stem,
+            &self.title,
+            &self.subtitle,
+            &self.legend(),
+            self.size().0,
+        )?;
         let (rows, cols) = self.grid();
         let cells = body.split_evenly((rows, cols));
         let n = self.series_names.len();
@@ -803,17 +821,14 @@ impl BarFigure {
 
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let e = err::<DrawingAreaErrorKind<DB::ErrorType>>(&self.stem);
-        root.fill(&PAPER).map_err(&e)?;
-        let legend = self.legend();
-        draw_header(root, &self.title, &self.subtitle, &legend)?;
-        let (w, _) = self.size();
-        let labels: Vec<String> = legend.iter().map(|(_, l)| l.clone()).collect();
-        let body = root.margin(
-            header_height(&self.subtitle, &labels, w),
-            MARGIN / 2,
-            MARGIN / 2,
-            MARGIN / 2,
-        );
+        let body = framed_body(
+            root,
+            &self.stem,
+            &self.title,
+            &self.subtitle,
+            &self.legend(),
+            self.size().0,
+        )?;
         let n = self.groups.len().max(1);
         let x = Scale {
             lo: 0.0,
