@@ -179,6 +179,7 @@ impl Model {
 /// to say where: an XML syntax error, an unsupported joint type, or an attribute that is not a
 /// number, each with its line and the link or joint it is in.
 pub fn parse_urdf(text: &str) -> Result<urdf_rs::Robot, ModelError> {
+    check_urdf_depth(text)?;
     urdf_rs::read_from_string(text).map_err(|e| {
         let raw = e.to_string();
         let raw = raw.strip_prefix("custom: ").unwrap_or(&raw);
@@ -186,6 +187,37 @@ pub fn parse_urdf(text: &str) -> Result<urdf_rs::Robot, ModelError> {
             locate_urdf_problem(text).unwrap_or_else(|| format!("not a readable URDF: {raw}")),
         )
     })
+}
+
+/// Deepest element nesting accepted in a URDF. A URDF is shallow (robot → link → inertial →
+/// origin is 4 deep); the parser behind `urdf_rs` recurses per level, so tens of thousands of
+/// nested elements would overflow the stack.
+pub const MAX_URDF_DEPTH: usize = 64;
+
+/// Refuse nesting deeper than [`MAX_URDF_DEPTH`] with a streaming (non-recursive) XML reader,
+/// before the recursive parser sees the text. Syntax errors are left to [`parse_urdf`].
+fn check_urdf_depth(text: &str) -> Result<(), ModelError> {
+    use xml::reader::{EventReader, XmlEvent};
+    let mut reader = EventReader::new(text.as_bytes());
+    let mut depth = 0usize;
+    loop {
+        match reader.next() {
+            Ok(XmlEvent::StartElement { name, .. }) => {
+                depth += 1;
+                if depth > MAX_URDF_DEPTH {
+                    use xml::common::Position;
+                    return Err(ModelError(format!(
+                        "line {}: element <{}> nested {depth} deep: allowed: at most {MAX_URDF_DEPTH} levels",
+                        reader.position().row + 1,
+                        name.local_name
+                    )));
+                }
+            }
+            Ok(XmlEvent::EndElement { .. }) => depth = depth.saturating_sub(1),
+            Ok(XmlEvent::EndDocument) | Err(_) => return Ok(()),
+            Ok(_) => {}
+        }
+    }
 }
 
 /// Attributes that hold numbers (one or three), by element.

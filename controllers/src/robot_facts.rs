@@ -130,6 +130,14 @@ fn one_line_toml_error(text: &str, e: &toml::de::Error) -> String {
     }
 }
 
+/// Upper bounds of the actuator figures: a delay is held as one command per plant step, so it
+/// must stay bounded (the harness also bounds it in plant steps); the others keep the models'
+/// arithmetic finite.
+pub const MAX_ACTUATOR_DELAY_S: f64 = 0.5;
+pub const MAX_ACTUATOR_LAG_S: f64 = 10.0;
+pub const MAX_TORQUE_LOOP_RATE_HZ: f64 = 1e6;
+pub const MAX_TORQUE_LOOP_GAIN: f64 = 1e6;
+
 impl RobotFacts {
     /// Parse TOML text. Errors name the field and what is allowed.
     pub fn from_toml_str(text: &str) -> Result<RobotFacts, String> {
@@ -230,17 +238,22 @@ impl RobotFacts {
                     p.torque_constant_error,
                     p.torque_constant_error.abs() < 1.0,
                 ),
-                ("delay", p.delay, p.delay >= 0.0),
-                ("lag", p.lag, p.lag >= 0.0),
+                (
+                    "delay",
+                    p.delay,
+                    (0.0..=MAX_ACTUATOR_DELAY_S).contains(&p.delay),
+                ),
+                ("lag", p.lag, (0.0..=MAX_ACTUATOR_LAG_S).contains(&p.lag)),
                 (
                     "torque_loop_rate",
                     p.torque_loop_rate,
-                    p.torque_loop_rate > 0.0,
+                    (1.0 / MAX_ACTUATOR_DELAY_S..=MAX_TORQUE_LOOP_RATE_HZ)
+                        .contains(&p.torque_loop_rate),
                 ),
                 (
                     "torque_loop_gain",
                     p.torque_loop_gain,
-                    p.torque_loop_gain >= 0.0,
+                    (0.0..=MAX_TORQUE_LOOP_GAIN).contains(&p.torque_loop_gain),
                 ),
             ];
             for (field, val, ok) in checks {
@@ -250,7 +263,10 @@ impl RobotFacts {
                         j.name,
                         match field {
                             "torque_constant_error" => "in (−1, 1)",
-                            "torque_loop_rate" => "> 0",
+                            "torque_loop_rate" => "from 2 to 1e6 Hz (its period is a delay ≤ 0.5 s)",
+                            "delay" => "from 0 to 0.5 s",
+                            "lag" => "from 0 to 10 s",
+                            "torque_loop_gain" => "from 0 to 1e6",
                             _ => "≥ 0",
                         }
                     ));

@@ -99,21 +99,21 @@ pub fn load_robot(file: Option<&Path>) -> Result<LoadedRobot, CliError> {
         .map(str::to_ascii_lowercase);
     match ext.as_deref() {
         Some("toml") => {
-            let text = read_text(path)?;
+            let text = read_text(path, crate::limits::MAX_FACTS_BYTES, "the robot file")?;
             let dir = path.parent().unwrap_or(Path::new(""));
             from_facts_text(&text, &shown, |urdf_field| {
                 let urdf_path = dir.join(urdf_field);
-                let urdf_text = std::fs::read_to_string(&urdf_path).map_err(|e| {
-                    CliError(format!(
-                        "{shown}: field `urdf` = \"{urdf_field}\": cannot read {}: {e}",
-                        urdf_path.display()
-                    ))
-                })?;
+                let urdf_text = crate::limits::read_text_bounded(
+                    &urdf_path,
+                    crate::limits::MAX_URDF_BYTES,
+                    "the URDF",
+                )
+                .map_err(|e| CliError(format!("{shown}: field `urdf` = \"{urdf_field}\": {e}")))?;
                 Ok((urdf_text, urdf_path.display().to_string()))
             })
         }
         Some("urdf") | Some("xml") => {
-            let text = read_text(path)?;
+            let text = read_text(path, crate::limits::MAX_URDF_BYTES, "the URDF")?;
             let model = Model::from_urdf_str(&text, RootKind::Floating)
                 .map_err(|e| CliError(format!("{shown}: {e}")))?;
             Ok(LoadedRobot {
@@ -129,9 +129,8 @@ pub fn load_robot(file: Option<&Path>) -> Result<LoadedRobot, CliError> {
     }
 }
 
-fn read_text(path: &Path) -> Result<String, CliError> {
-    std::fs::read_to_string(path)
-        .map_err(|e| CliError(format!("{}: cannot read: {e}", path.display())))
+fn read_text(path: &Path, limit: u64, what: &str) -> Result<String, CliError> {
+    crate::limits::read_text_bounded(path, limit, what).map_err(CliError)
 }
 
 fn from_facts_text(
@@ -139,6 +138,7 @@ fn from_facts_text(
     shown: &str,
     read_urdf: impl FnOnce(&str) -> Result<(String, String), CliError>,
 ) -> Result<LoadedRobot, CliError> {
+    crate::limits::check_toml_depth(text).map_err(|e| CliError(format!("{shown}: {e}")))?;
     let facts = RobotFacts::from_toml_str(text).map_err(|e| CliError(format!("{shown}: {e}")))?;
     let (urdf_text, urdf_shown) = read_urdf(&facts.urdf)?;
     let model = Model::from_urdf_str(&urdf_text, RootKind::Floating)
@@ -166,7 +166,8 @@ pub struct State {
 /// `a` (nv numbers each), all finite, the base quaternion of unit norm.
 pub fn read_state(path: &Path, model: &Model) -> Result<State, CliError> {
     let shown = path.display();
-    let text = read_text(path)?;
+    // A state is a few hundred numbers; the facts limit is ample.
+    let text = read_text(path, crate::limits::MAX_FACTS_BYTES, "the state file")?;
     let value: Value = serde_json::from_str(&text).map_err(|e| {
         CliError(format!(
             "{shown}: not readable JSON: {e} (numbers must be finite: JSON has no NaN or Infinity)"

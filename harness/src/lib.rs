@@ -4,6 +4,7 @@
 pub mod cell;
 pub mod cli_robot;
 pub mod cli_run;
+pub mod limits;
 pub mod matrix;
 pub mod metrics;
 pub mod onset;
@@ -11,6 +12,7 @@ pub mod planner;
 pub mod plant;
 pub mod report;
 pub mod robot;
+pub mod run_folder;
 pub mod runner;
 pub mod scenario;
 

@@ -3,7 +3,7 @@
 //! order, resume or sharding.
 
 use crate::plant::actuator::ActuatorKind;
-use crate::scenario::Scenario;
+use crate::scenario::{Axes, Scenario};
 use sha2::{Digest, Sha256};
 
 /// The axes of the matrix, as users name them (scenario fields, `cells.csv` columns, `--pick`).
@@ -73,8 +73,13 @@ impl Cell {
 /// All cells in matrix order: slope, μ, rate, actuator, controller, mass scale, CoM shift,
 /// noise, seed (the last varies fastest).
 pub fn expand(s: &Scenario) -> Vec<Cell> {
-    let a = &s.axes;
-    let mut out = Vec::with_capacity(s.cell_count());
+    expand_axes(&s.axes, s.seeds)
+}
+
+/// [`expand`] from the axes and the seed count alone (a manifest records both). The caller
+/// bounds the size (a validated scenario has at most [`crate::limits::MAX_CELLS`] cells).
+pub fn expand_axes(a: &Axes, seeds: u32) -> Vec<Cell> {
+    let mut out = Vec::with_capacity(a.len_product(seeds).unwrap_or(0));
     for &slope_deg in &a.slope_deg {
         for &mu in &a.mu {
             for &rate_hz in &a.rate_hz {
@@ -83,7 +88,7 @@ pub fn expand(s: &Scenario) -> Vec<Cell> {
                         for &mass_scale in &a.mass_scale {
                             for &com_shift_mm in &a.com_shift_mm {
                                 for &sensor_noise in &a.sensor_noise {
-                                    for seed in 0..s.seeds {
+                                    for seed in 0..seeds {
                                         out.push(Cell {
                                             index: out.len(),
                                             slope_deg,

@@ -2,6 +2,7 @@
 //! applied. The demo quadruped is compiled into the binary so the tool runs with no files.
 
 use gripsweep_controllers::{Model, RobotFacts, RootKind};
+use crate::limits::{MAX_FACTS_BYTES, MAX_URDF_BYTES, check_toml_depth, read_text_bounded};
 use std::path::{Path, PathBuf};
 
 /// The demo quadruped's files, embedded.
@@ -14,6 +15,8 @@ pub const DEMO_FACTS: &str = include_str!("../../scenarios/robots/brindle.toml")
 pub struct LoadedRobot {
     /// Where the facts came from (for messages and manifests).
     pub source: String,
+    /// Where the URDF came from.
+    pub urdf_source: String,
     pub urdf_text: String,
     pub facts_text: String,
     pub urdf: urdf_rs::Robot,
@@ -34,17 +37,16 @@ impl LoadedRobot {
 
     /// From a facts TOML on disk; its `urdf` path is relative to the TOML.
     pub fn from_facts_file(path: &Path) -> Result<LoadedRobot, String> {
-        let facts_text = std::fs::read_to_string(path)
-            .map_err(|e| format!("{}: cannot read the robot file: {e}", path.display()))?;
+        let facts_text = read_text_bounded(path, MAX_FACTS_BYTES, "the robot file")?;
+        check_toml_depth(&facts_text).map_err(|e| format!("{}: {e}", path.display()))?;
         let facts = RobotFacts::from_toml_str(&facts_text)
             .map_err(|e| format!("{}: {e}", path.display()))?;
         let urdf_path: PathBuf = path.parent().unwrap_or(Path::new(".")).join(&facts.urdf);
-        let urdf_text = std::fs::read_to_string(&urdf_path).map_err(|e| {
+        let urdf_text = read_text_bounded(&urdf_path, MAX_URDF_BYTES, "the URDF").map_err(|e| {
             format!(
-                "{}: field `urdf` = \"{}\": cannot read {}: {e}",
+                "{}: field `urdf` = \"{}\": {e}",
                 path.display(),
-                facts.urdf,
-                urdf_path.display()
+                facts.urdf
             )
         })?;
         Self::from_texts(
@@ -62,6 +64,7 @@ impl LoadedRobot {
         urdf_name: &str,
         urdf_text: &str,
     ) -> Result<LoadedRobot, String> {
+        check_toml_depth(facts_text).map_err(|e| format!("{facts_name}: {e}"))?;
         let facts =
             RobotFacts::from_toml_str(facts_text).map_err(|e| format!("{facts_name}: {e}"))?;
         let urdf = gripsweep_controllers::model::parse_urdf(urdf_text)
@@ -74,6 +77,7 @@ impl LoadedRobot {
         facts.apply_armature(&mut model);
         Ok(LoadedRobot {
             source: facts_name.to_string(),
+            urdf_source: urdf_name.to_string(),
             urdf_text: urdf_text.to_string(),
             facts_text: facts_text.to_string(),
             urdf,

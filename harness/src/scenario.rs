@@ -9,7 +9,16 @@ use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
 use gripsweep_controllers::laws::{LawSettings, law_names};
 use serde::Deserialize;
+use crate::limits::{
+    AXIS_TOLERANCE, MAX_AXIS_VALUES, MAX_CELLS, MAX_DELAY_S, MAX_DELAY_STEPS, MAX_SEEDS,
+    MAX_STEPS_PER_CELL, MIN_DT, MIN_DURATION_S, same_axis_value,
+};
 use std::path::{Path, PathBuf};
+
+/// Largest gait length (m) or period (s) accepted.
+const MAX_GAIT_NUMBER: f64 = 1000.0;
+/// Largest sensor noise standard deviation accepted (at `sensor_noise = 1`).
+const MAX_NOISE_STD: f64 = 1000.0;
 
 /// The default scenario's text, embedded so `gripsweep run` works with no argument.
 pub const DEFAULT_SCENARIO: &str = include_str!("../../scenarios/default.toml");
@@ -236,12 +245,12 @@ impl std::fmt::Display for ScenarioError {
 impl Scenario {
     /// Read and validate a scenario file.
     pub fn from_file(path: &Path) -> Result<Scenario, ScenarioError> {
-        let text = std::fs::read_to_string(path).map_err(|e| {
-            ScenarioError(format!(
-                "{}: cannot read the scenario file: {e}",
-                path.display()
-            ))
-        })?;
+        let text = crate::limits::read_text_bounded(
+            path,
+            crate::limits::MAX_SCENARIO_BYTES,
+            "the scenario file",
+        )
+        .map_err(ScenarioError)?;
         Self::from_text(&path.display().to_string(), &text, path.parent())
     }
 
@@ -256,6 +265,7 @@ impl Scenario {
         text: &str,
         dir: Option<&Path>,
     ) -> Result<Scenario, ScenarioError> {
+        crate::limits::check_toml_depth(text).map_err(|e| ScenarioError(format!("{source}: {e}")))?;
         let file: ScenarioFile = toml::from_str(text)
             .map_err(|e| ScenarioError(format!("{source}: {}", e.to_string().trim_end())))?;
         let fail =
@@ -284,17 +294,20 @@ impl Scenario {
                 format!("{} s: allowed: 0 < duration ≤ 600 s", file.duration),
             ));
         }
-        if file.seeds == 0 || file.seeds > 1000 {
-            return Err(fail("seeds", format!("{}: allowed: 1 to 1000", file.seeds)));
+        if file.seeds == 0 || file.seeds > MAX_SEEDS {
+            return Err(fail(
+                "seeds",
+                format!("{}: allowed: 1 to {MAX_SEEDS}", file.seeds),
+            ));
         }
 
         let mut plant = PlantSettings::default();
         let p = &file.plant;
         if let Some(dt) = p.dt {
-            if !(dt.is_finite() && dt > 0.0 && dt <= 1e-3) {
+            if !(dt.is_finite() && (MIN_DT..=1e-3).contains(&dt)) {
                 return Err(fail(
                     "plant.dt",
-                    format!("{dt} s: allowed: 0 < dt ≤ 0.001 s"),
+                    format!("{dt} s: allowed: {MIN_DT} s ≤ dt ≤ 0.001 s"),
                 ));
             }
             plant.dt = dt;
@@ -306,19 +319,19 @@ impl Scenario {
             plant.substeps = s;
         }
         if let Some(hz) = p.contact_hz {
-            if !(hz.is_finite() && hz > 0.0) {
+            if !(hz.is_finite() && hz > 0.0 && hz <= 1e5) {
                 return Err(fail(
                     "plant.contact_hz",
-                    format!("{hz}: allowed: a frequency > 0 Hz"),
+                    format!("{hz}: allowed: a frequency > 0 and ≤ 100000 Hz"),
                 ));
             }
             plant.contact_hz = hz;
         }
         if let Some(z) = p.contact_damping {
-            if !(z.is_finite() && z > 0.0) {
+            if !(z.is_finite() && z > 0.0 && z <= 100.0) {
                 return Err(fail(
                     "plant.contact_damping",
-                    format!("{z}: allowed: a damping ratio > 0"),
+                    format!("{z}: allowed: a damping ratio > 0 and ≤ 100"),
                 ));
             }
             plant.contact_damping = z;
@@ -336,25 +349,39 @@ impl Scenario {
                 Err(fail(field, format!("{v}: allowed: a number > 0")))
             }
         };
-        let body_height = positive("gait.body_height", g.body_height, 0.30)?;
+        // Gait lengths (m) and periods (s): > 0 and at most MAX_GAIT_NUMBER, far beyond any
+        // legged robot, so the planner's arithmetic stays finite.
+        let positive_gait =
+            |field: &str, v: Option<f64>, default: f64| -> Result<f64, ScenarioError> {
+                let v = v.unwrap_or(default);
+                if v.is_finite() && v > 0.0 && v <= MAX_GAIT_NUMBER {
+                    Ok(v)
+                } else {
+                    Err(fail(
+                        field,
+                        format!("{v}: allowed: a number > 0 and ≤ {MAX_GAIT_NUMBER}"),
+                    ))
+                }
+            };
+        let body_height = positive_gait("gait.body_height", g.body_height, 0.30)?;
         let gait = match g.kind.as_str() {
             "stand" => Gait::Stand,
             "crawl" => Gait::Crawl {
-                step_length: positive("gait.step_length", g.step_length, 0.06)?,
-                swing_height: positive("gait.swing_height", g.swing_height, 0.05)?,
-                cycle_period: positive("gait.cycle_period", g.cycle_period, 3.2)?,
+                step_length: positive_gait("gait.step_length", g.step_length, 0.06)?,
+                swing_height: positive_gait("gait.swing_height", g.swing_height, 0.05)?,
+                cycle_period: positive_gait("gait.cycle_period", g.cycle_period, 3.2)?,
                 body_height,
-                margin: positive("gait.margin", g.margin, 0.02)?,
+                margin: positive_gait("gait.margin", g.margin, 0.02)?,
             },
             "weight-shift" => Gait::WeightShift {
-                amplitude: positive("gait.amplitude", g.amplitude, 0.03)?,
-                period: positive("gait.period", g.period, 2.0)?,
+                amplitude: positive_gait("gait.amplitude", g.amplitude, 0.03)?,
+                period: positive_gait("gait.period", g.period, 2.0)?,
                 body_height,
             },
             "trot" => Gait::Trot {
-                step_length: positive("gait.step_length", g.step_length, 0.06)?,
-                swing_height: positive("gait.swing_height", g.swing_height, 0.05)?,
-                cycle_period: positive("gait.cycle_period", g.cycle_period, 0.6)?,
+                step_length: positive_gait("gait.step_length", g.step_length, 0.06)?,
+                swing_height: positive_gait("gait.swing_height", g.swing_height, 0.05)?,
+                cycle_period: positive_gait("gait.cycle_period", g.cycle_period, 0.6)?,
                 body_height,
             },
             other => {
@@ -455,6 +482,12 @@ impl Scenario {
          -> Result<Vec<f64>, ScenarioError> {
             let v = v.clone().unwrap_or_else(|| default.to_vec());
             nonempty(field, v.len())?;
+            if v.len() > MAX_AXIS_VALUES {
+                return Err(fail(
+                    field,
+                    format!("{} values: allowed: at most {MAX_AXIS_VALUES}", v.len()),
+                ));
+            }
             for (i, x) in v.iter().enumerate() {
                 if !x.is_finite() || !ok(*x) {
                     return Err(fail(
@@ -463,9 +496,23 @@ impl Scenario {
                     ));
                 }
             }
-            for (i, x) in v.iter().enumerate() {
-                if v[..i].contains(x) {
-                    return Err(fail(field, format!("value {x} appears twice")));
+            // Values equal within AXIS_TOLERANCE would run every cell twice. Sorted, so the
+            // check is O(n log n); each value is compared with its neighbour.
+            let mut sorted: Vec<(f64, usize)> = v.iter().copied().zip(0..).collect();
+            sorted.sort_by(|a, b| a.0.total_cmp(&b.0));
+            for w in sorted.windows(2) {
+                if same_axis_value(w[0].0, w[1].0) {
+                    let (a, b) = (w[0].1.min(w[1].1), w[0].1.max(w[1].1));
+                    return Err(fail(
+                        field,
+                        format!(
+                            "values {} (entry {}) and {} (entry {}) are the same value (equal within a relative {AXIS_TOLERANCE}); give each value once",
+                            v[a],
+                            a + 1,
+                            v[b],
+                            b + 1
+                        ),
+                    ));
                 }
             }
             Ok(v)
@@ -518,7 +565,36 @@ impl Scenario {
             &|x| (0.0..=100.0).contains(&x),
             "0 ≤ level ≤ 100",
         )?;
+        // The shortest cell: control steps at the slowest rate and stance phases to average.
+        let slowest = rate_hz.iter().copied().fold(f64::INFINITY, f64::min);
+        let min_duration = MIN_DURATION_S.max(10.0 / slowest);
+        if file.duration < min_duration {
+            return Err(fail(
+                "duration",
+                format!(
+                    "{} s: allowed: at least {min_duration} s (the larger of {MIN_DURATION_S} s and ten control periods at the slowest rate of `axes.rate_hz`, {slowest} Hz)",
+                    file.duration
+                ),
+            ));
+        }
+        if file.duration / plant.dt > MAX_STEPS_PER_CELL {
+            return Err(fail(
+                "duration",
+                format!(
+                    "{} s at plant.dt = {} s is {:.0} plant steps per cell: allowed: at most {MAX_STEPS_PER_CELL} (shorten the duration or lengthen plant.dt)",
+                    file.duration,
+                    plant.dt,
+                    file.duration / plant.dt
+                ),
+            ));
+        }
         let actuator_names = a.actuator.clone().unwrap_or_else(|| vec!["ideal".into()]);
+        if actuator_names.len() > MAX_AXIS_VALUES {
+            return Err(fail(
+                "axes.actuator",
+                format!("{} values: allowed: at most {MAX_AXIS_VALUES}", actuator_names.len()),
+            ));
+        }
         nonempty("axes.actuator", actuator_names.len())?;
         let mut actuator = Vec::new();
         for n in &actuator_names {
@@ -539,6 +615,12 @@ impl Scenario {
             .clone()
             .unwrap_or_else(|| law_names().iter().map(|s| s.to_string()).collect());
         nonempty("axes.controller", controller.len())?;
+        if controller.len() > MAX_AXIS_VALUES {
+            return Err(fail(
+                "axes.controller",
+                format!("{} values: allowed: at most {MAX_AXIS_VALUES}", controller.len()),
+            ));
+        }
         for (i, c) in controller.iter().enumerate() {
             if !law_names().contains(&c.as_str()) {
                 return Err(fail(
@@ -561,11 +643,26 @@ impl Scenario {
             ("noise.base_orientation", n.base_orientation),
             ("noise.base_linear_velocity", n.base_linear_velocity),
             ("noise.base_angular_velocity", n.base_angular_velocity),
-            ("noise.delay", n.delay),
         ] {
-            if !(v.is_finite() && v >= 0.0) {
-                return Err(fail(field, format!("{v}: allowed: a number ≥ 0")));
+            if !(v.is_finite() && (0.0..=MAX_NOISE_STD).contains(&v)) {
+                return Err(fail(
+                    field,
+                    format!("{v}: allowed: a number from 0 to {MAX_NOISE_STD}"),
+                ));
             }
+        }
+        // The observation delay keeps one past state per plant step in a ring.
+        if !(n.delay.is_finite()
+            && (0.0..=MAX_DELAY_S).contains(&n.delay)
+            && n.delay / plant.dt <= MAX_DELAY_STEPS)
+        {
+            return Err(fail(
+                "noise.delay",
+                format!(
+                    "{} s: allowed: 0 to {MAX_DELAY_S} s and at most {MAX_DELAY_STEPS} plant steps of plant.dt = {} s",
+                    n.delay, plant.dt
+                ),
+            ));
         }
         let f = &file.falls;
         if !(f.min_height_share.is_finite() && f.min_height_share > 0.0 && f.min_height_share < 1.0)
@@ -602,12 +699,41 @@ impl Scenario {
                     format!("{}: allowed: 1 to 12", o.steps),
                 ));
             }
-            if !(o.threshold_mm.is_finite() && o.threshold_mm > 0.0) {
+            if !(o.threshold_mm.is_finite() && o.threshold_mm > 0.0 && o.threshold_mm <= 1e6) {
                 return Err(fail(
                     "onset.threshold_mm",
-                    format!("{}: allowed: > 0 mm", o.threshold_mm),
+                    format!("{}: allowed: > 0 and ≤ 1000000 mm", o.threshold_mm),
                 ));
             }
+        }
+        // The matrix size, with overflow checks: a product that wraps would give 0 cells.
+        let lens = [
+            ("slope_deg", slope_deg.len()),
+            ("mu", mu.len()),
+            ("rate_hz", rate_hz.len()),
+            ("actuator", actuator.len()),
+            ("controller", controller.len()),
+            ("mass_scale", mass_scale.len()),
+            ("com_shift_mm", com_shift_mm.len()),
+            ("sensor_noise", sensor_noise.len()),
+            ("seeds", file.seeds as usize),
+        ];
+        let count = lens
+            .iter()
+            .try_fold(1usize, |n, (_, l)| n.checked_mul(*l))
+            .filter(|n| *n <= MAX_CELLS);
+        if count.is_none() {
+            let product: f64 = lens.iter().map(|(_, l)| *l as f64).product();
+            return Err(fail(
+                "axes",
+                format!(
+                    "the matrix has {product:.0} cells ({}): allowed: at most {MAX_CELLS}",
+                    lens.iter()
+                        .map(|(n, l)| format!("{l} {n}"))
+                        .collect::<Vec<_>>()
+                        .join(" × ")
+                ),
+            ));
         }
         Ok(Scenario {
             source: source.to_string(),
@@ -668,17 +794,27 @@ impl Scenario {
         Ok(())
     }
 
-    /// Number of cells of the matrix.
+    /// Number of cells of the matrix (validation bounds it by [`crate::limits::MAX_CELLS`]).
     pub fn cell_count(&self) -> usize {
-        let a = &self.axes;
-        a.slope_deg.len()
-            * a.mu.len()
-            * a.rate_hz.len()
-            * a.actuator.len()
-            * a.controller.len()
-            * a.mass_scale.len()
-            * a.com_shift_mm.len()
-            * a.sensor_noise.len()
-            * self.seeds as usize
+        self.axes.len_product(self.seeds).unwrap_or(usize::MAX)
+    }
+}
+
+impl Axes {
+    /// The number of cells these axes give with `seeds` seeds; `None` on overflow.
+    pub fn len_product(&self, seeds: u32) -> Option<usize> {
+        [
+            self.slope_deg.len(),
+            self.mu.len(),
+            self.rate_hz.len(),
+            self.actuator.len(),
+            self.controller.len(),
+            self.mass_scale.len(),
+            self.com_shift_mm.len(),
+            self.sensor_noise.len(),
+            seeds as usize,
+        ]
+        .iter()
+        .try_fold(1usize, |n, l| n.checked_mul(*l))
     }
 }
