@@ -16,7 +16,8 @@ pub struct RunArgs {
     /// Output folder. Default: results/<scenario name> (results/<name>-shard-I-of-K with --shard).
     #[arg(long)]
     pub out: Option<PathBuf>,
-    /// Worker threads. Default: one per core.
+    /// Worker threads, 1 to the number of cores this machine offers (more is refused).
+    /// Default: one per core.
     #[arg(long)]
     pub threads: Option<usize>,
     /// Run only shard I of K (1-based, e.g. 2/4): the cells whose matrix index is ≡ I−1 mod K.
@@ -25,7 +26,8 @@ pub struct RunArgs {
     /// Continue a killed run in the same output folder: finished cells are kept, the rest run.
     #[arg(long, conflicts_with = "force")]
     pub resume: bool,
-    /// Replace an existing output folder.
+    /// Replace an existing run folder of this tool (only its own files are removed); any
+    /// other folder, the current folder or one holding an input is refused.
     #[arg(long)]
     pub force: bool,
     /// No progress output.
@@ -37,7 +39,8 @@ pub struct RunArgs {
 pub struct CheckArgs {
     /// Scenario file (TOML). Default: the embedded default scenario.
     pub scenario: Option<PathBuf>,
-    /// Threads assumed for the run-time estimate. Default: one per core.
+    /// Threads assumed for the run-time estimate, 1 to the cores this machine offers.
+    /// Default: one per core.
     #[arg(long)]
     pub threads: Option<usize>,
 }
@@ -73,7 +76,8 @@ pub struct MergeArgs {
     /// Output folder for the joined run.
     #[arg(long)]
     pub out: PathBuf,
-    /// Replace an existing output folder.
+    /// Replace an existing run folder of this tool (never one of the shards, the current
+    /// folder or a folder of other files).
     #[arg(long)]
     pub force: bool,
 }
@@ -84,6 +88,9 @@ fn load(path: &Option<PathBuf>) -> Result<Scenario, RunError> {
         None => Scenario::default_embedded().map_err(|e| RunError::input(e.0)),
     }
 }
+
+/// Most rows `trace` keeps.
+const MAX_TRACE_ROWS: f64 = 200_000.0;
 
 /// "I/K" (1-based) → (I−1, K).
 pub fn parse_shard(s: &str) -> Result<(usize, usize), RunError> {
@@ -125,9 +132,6 @@ pub fn cmd_run(a: &RunArgs) -> Result<String, RunError> {
             None => base.join(slug(&s.name)),
         }
     });
-    if a.threads == Some(0) {
-        return Err(RunError::input("--threads 0: allowed: 1 or more"));
-    }
     let opts = RunOptions {
         out: out.clone(),
         threads: a.threads,
@@ -158,8 +162,13 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
     let cells = expand(&s);
     // Estimate: simulate a short stretch of standing (all feet down: the costliest control
     // step) with each controller and scale by the cells' durations.
-    let threads = a.threads.unwrap_or_else(rayon::current_num_threads).max(1);
-    let probe = 0.5f64.min(s.duration);
+    let threads = crate::limits::check_threads(a.threads)
+        .map_err(RunError::input)?
+        .unwrap_or_else(rayon::current_num_threads)
+        .max(1);
+    // A probe of a fixed number of plant steps, so `check` answers in bounded time whatever
+    // the step size.
+    let probe = (crate::limits::CHECK_PROBE_STEPS as f64 * s.plant.dt).min(s.duration);
     let mut short = s.clone();
     short.duration = probe;
     short.gait = crate::planner::Gait::Stand;
@@ -268,6 +277,15 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
         return Err(RunError::input("--every 0: allowed: 1 or more"));
     }
     let robot = s.load_robot().map_err(RunError::input)?;
+    // One trace row holds every joint's angle and torque and every foot's forces: bound the
+    // rows kept in memory.
+    let rows_wanted = s.duration / s.plant.dt / a.every as f64;
+    if rows_wanted > MAX_TRACE_ROWS {
+        return Err(RunError::input(format!(
+            "--every {}: {rows_wanted:.0} rows for {} s at plant.dt = {} s: allowed: at most {MAX_TRACE_ROWS} rows (raise --every)",
+            a.every, s.duration, s.plant.dt
+        )));
+    }
     let cell = pick_cell(&s, &a.pick)?;
     let mut rows: Vec<TraceRow> = Vec::new();
     let out = run_cell(

@@ -12,10 +12,13 @@ use crate::scenario::Scenario;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use rayon::prelude::*;
 use serde_json::{Value, json};
-use sha2::{Digest, Sha256};
-use std::collections::HashSet;
+use crate::run_folder::{
+    FolderState, check_replaceable, compare_inputs, folder_state, input_entry, read_manifest,
+    remove_tool_files, sha256_hex,
+};
+use std::collections::{HashMap, HashSet};
 use std::fs::{File, OpenOptions};
-use std::io::{IsTerminal, Read, Seek, SeekFrom, Write};
+use std::io::{IsTerminal, Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
 use std::sync::mpsc;
 use std::time::{Instant, SystemTime, UNIX_EPOCH};
@@ -90,22 +93,28 @@ fn num(x: f64) -> String {
     format!("{x}")
 }
 
+/// The identity columns of a cell (id, index, the axes), by column name, as written.
+fn cell_identity(cell: &Cell) -> [(&'static str, String); 11] {
+    let n = crate::matrix::AXIS_NAMES;
+    [
+        ("cell_id", cell.id()),
+        ("index", cell.index.to_string()),
+        (n[0], num(cell.slope_deg)),
+        (n[1], num(cell.mu)),
+        (n[2], num(cell.rate_hz)),
+        (n[3], cell.actuator.name().to_string()),
+        (n[4], cell.controller.clone()),
+        (n[5], num(cell.mass_scale)),
+        (n[6], num(cell.com_shift_mm)),
+        (n[7], num(cell.sensor_noise)),
+        (n[8], cell.seed.to_string()),
+    ]
+}
+
 fn cell_record(cell: &Cell, out: &CellOutcome) -> Vec<String> {
-    let mut r = vec![
-        cell.id(),
-        cell.index.to_string(),
-        num(cell.slope_deg),
-        num(cell.mu),
-        num(cell.rate_hz),
-        cell.actuator.name().to_string(),
-        cell.controller.clone(),
-        num(cell.mass_scale),
-        num(cell.com_shift_mm),
-        num(cell.sensor_noise),
-        cell.seed.to_string(),
-        out.status.name().to_string(),
-        out.message.clone(),
-    ];
+    let mut r: Vec<String> = cell_identity(cell).into_iter().map(|(_, v)| v).collect();
+    r.push(out.status.name().to_string());
+    r.push(out.message.clone());
     r.extend(out.metrics.values().iter().map(|v| num(*v)));
     r
 }
@@ -118,13 +127,6 @@ fn csv_line(fields: &[String]) -> String {
     String::from_utf8(w.into_inner().expect("memory")).expect("utf-8")
 }
 
-fn sha256_hex(text: &str) -> String {
-    Sha256::digest(text.as_bytes())
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect()
-}
-
 fn now_unix() -> f64 {
     SystemTime::now()
         .duration_since(UNIX_EPOCH)
@@ -132,67 +134,151 @@ fn now_unix() -> f64 {
         .unwrap_or(0.0)
 }
 
-/// An append-only CSV file whose rows survive a kill: a torn last line (no newline) is cut off
-/// on open, each row is written whole, flushed and synced.
+/// An append-only CSV file whose rows survive a kill: each row is written whole, flushed and
+/// synced. Opened after its kept rows were checked ([`crate::run_folder::complete_lines`],
+/// [`crate::run_folder::check_rows`]); a torn last line is cut only then.
 struct RowFile {
     file: File,
 }
 
 impl RowFile {
-    fn open(path: &Path, header: &[String]) -> Result<(RowFile, Vec<Vec<String>>), String> {
+    /// Open for appending, keeping the first `keep` bytes (0: a new file, header written).
+    fn open(path: &Path, header: &[String], keep: u64) -> Result<RowFile, String> {
         let mut file = OpenOptions::new()
             .read(true)
             .append(true)
             .create(true)
             .open(path)
             .map_err(|e| format!("{}: {e}", path.display()))?;
-        let mut text = String::new();
-        file.read_to_string(&mut text)
-            .map_err(|e| format!("{}: {e}", path.display()))?;
-        let keep = match text.rfind('\n') {
-            Some(i) => i + 1,
-            None => 0,
-        };
-        if keep < text.len() {
-            file.set_len(keep as u64)
+        let len = file
+            .metadata()
+            .map_err(|e| format!("{}: {e}", path.display()))?
+            .len();
+        if keep < len {
+            file.set_len(keep)
                 .map_err(|e| format!("{}: {e}", path.display()))?;
             file.seek(SeekFrom::End(0))
                 .map_err(|e| format!("{}: {e}", path.display()))?;
         }
-        let mut rows = Vec::new();
         if keep == 0 {
             file.write_all(csv_line(header).as_bytes())
                 .map_err(|e| format!("{}: {e}", path.display()))?;
             file.sync_data()
                 .map_err(|e| format!("{}: {e}", path.display()))?;
-        } else {
-            let mut rdr = csv::ReaderBuilder::new()
-                .has_headers(true)
-                .from_reader(&text.as_bytes()[..keep]);
-            let found: Vec<String> = rdr
-                .headers()
-                .map_err(|e| format!("{}: {e}", path.display()))?
-                .iter()
-                .map(String::from)
-                .collect();
-            if found != header {
-                return Err(format!(
-                    "{}: the header does not match this version's columns",
-                    path.display()
-                ));
-            }
-            for (i, rec) in rdr.records().enumerate() {
-                let rec = rec.map_err(|e| format!("{}: row {}: {e}", path.display(), i + 2))?;
-                rows.push(rec.iter().map(String::from).collect());
-            }
         }
-        Ok((RowFile { file }, rows))
+        Ok(RowFile { file })
     }
 
     fn append(&mut self, fields: &[String]) -> std::io::Result<()> {
         self.file.write_all(csv_line(fields).as_bytes())?;
         self.file.flush()?;
         self.file.sync_data()
+    }
+}
+
+/// The rows kept in a run-folder CSV and the byte length they end at: the complete lines,
+/// each checked by `check`; a missing file keeps nothing.
+fn kept_rows(
+    path: &Path,
+    header: &[String],
+    check: impl FnMut(&csv::StringRecord) -> Result<(), String>,
+) -> Result<(Vec<csv::StringRecord>, u64), String> {
+    if !path.exists() {
+        return Ok((Vec::new(), 0));
+    }
+    let (bytes, _) = crate::run_folder::complete_lines(path)?;
+    if bytes.is_empty() {
+        return Ok((Vec::new(), 0));
+    }
+    let rows = crate::run_folder::check_rows(path, &bytes, header, check)?;
+    Ok((rows, bytes.len() as u64))
+}
+
+/// A check of `cells.csv` rows against the cells they may hold (`expected`, by id): the cell
+/// id is one of them and appears once, the index and axis columns are that cell's, the status
+/// is known and every metric column is a number. Columns are found by name.
+fn cell_row_check<'a>(
+    header: &'a [String],
+    expected: &'a HashMap<String, &'a Cell>,
+) -> impl FnMut(&csv::StringRecord) -> Result<(), String> + 'a {
+    let mut seen: HashMap<String, u64> = HashMap::new();
+    move |rec| {
+        let line = rec.position().map_or(0, |p| p.line());
+        let id = rec.get(0).unwrap_or("");
+        let Some(cell) = expected.get(id) else {
+            return Err(format!(
+                "column `cell_id`: '{id}' is not a cell of this matrix (or of this shard)"
+            ));
+        };
+        if let Some(first) = seen.insert(id.to_string(), line) {
+            return Err(format!(
+                "column `cell_id`: cell {id} appears twice (first on line {first})"
+            ));
+        }
+        let own = cell_identity(cell);
+        for (col, value) in header.iter().zip(rec.iter()) {
+            let col = col.as_str();
+            if let Some((_, want)) = own.iter().find(|(n, _)| *n == col) {
+                if value != want {
+                    return Err(format!(
+                        "column `{col}`: '{value}' is not the value of cell {id} ('{want}')"
+                    ));
+                }
+            } else if col == "status" {
+                if CellStatus::parse(value).is_none() {
+                    return Err(format!("column `status`: unknown status '{value}'"));
+                }
+            } else if CellMetrics::COLUMNS.contains(&col) && value.parse::<f64>().is_err() {
+                return Err(format!("column `{col}`: '{value}' is not a number"));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A check of `timing.csv` rows: a cell of `expected`, once, and numbers.
+fn timing_row_check<'a>(
+    expected: &'a HashMap<String, &'a Cell>,
+) -> impl FnMut(&csv::StringRecord) -> Result<(), String> + 'a {
+    let mut seen: HashSet<String> = HashSet::new();
+    move |rec| {
+        let id = rec.get(0).unwrap_or("");
+        if !expected.contains_key(id) {
+            return Err(format!(
+                "column `cell_id`: '{id}' is not a cell of this matrix (or of this shard)"
+            ));
+        }
+        if !seen.insert(id.to_string()) {
+            return Err(format!("column `cell_id`: cell {id} appears twice"));
+        }
+        for (col, value) in TIMING_COLUMNS.iter().zip(rec.iter()).skip(1) {
+            if value.parse::<f64>().is_err() {
+                return Err(format!("column `{col}`: '{value}' is not a number"));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A check of `onset.csv` rows: a group id of `groups`, once.
+fn onset_row_check(
+    groups: &HashSet<String>,
+) -> impl FnMut(&csv::StringRecord) -> Result<(), String> + '_ {
+    let mut seen: HashSet<String> = HashSet::new();
+    move |rec| {
+        let id = rec.get(0).unwrap_or("");
+        if !groups.contains(id) {
+            return Err(format!(
+                "column `group_id`: '{id}' is not a group of this study (or of this shard)"
+            ));
+        }
+        if !seen.insert(id.to_string()) {
+            return Err(format!("column `group_id`: group {id} appears twice"));
+        }
+        if rec.get(1).is_none_or(|v| v.parse::<usize>().is_err()) {
+            return Err("column `index`: not a whole number".into());
+        }
+        Ok(())
     }
 }
 
@@ -230,6 +316,7 @@ fn manifest(
         "scenario_name": s.name,
         "scenario_source": s.source,
         "scenario_sha256": sha256_hex(&s.text),
+        "inputs": manifest_inputs(s, robot),
         "scenario_text": s.text,
         "robot_source": robot.source,
         "robot_facts_sha256": sha256_hex(&robot.facts_text),
@@ -251,12 +338,6 @@ fn manifest(
         "started_unix_s": now_unix(),
         "finished_unix_s": Value::Null,
     })
-}
-
-fn read_manifest(dir: &Path) -> Result<Value, String> {
-    let p = dir.join(MANIFEST_FILE);
-    let text = std::fs::read_to_string(&p).map_err(|e| format!("{}: {e}", p.display()))?;
-    serde_json::from_str(&text).map_err(|e| format!("{}: not valid JSON: {e}", p.display()))
 }
 
 fn write_manifest(dir: &Path, m: &Value) -> Result<(), String> {
@@ -299,9 +380,31 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
     out.metrics.slip_mean_mm
 }
 
+/// The inputs that shape a cell, by role, each with its path and SHA-256 (manifest `inputs`).
+/// `--resume` and `merge` refuse a folder whose inputs differ. A new input (a tuning table)
+/// is one more entry here.
+pub fn manifest_inputs(s: &Scenario, robot: &LoadedRobot) -> Value {
+    json!({
+        "scenario": input_entry(&s.source, &s.text),
+        "robot_facts": input_entry(&robot.source, &robot.facts_text),
+        "urdf": input_entry(&robot.urdf_source, &robot.urdf_text),
+    })
+}
+
+/// The files a run reads (for `--force`: never replace a folder holding one).
+fn input_paths(s: &Scenario, robot: &LoadedRobot) -> Vec<PathBuf> {
+    let mut v = vec![PathBuf::from(&s.source)];
+    if s.robot_path.is_some() {
+        v.push(PathBuf::from(&robot.source));
+        v.push(PathBuf::from(&robot.urdf_source));
+    }
+    v
+}
+
 /// Run a scenario's cells (or one shard of them) into `opts.out`.
 pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     let started = Instant::now();
+    let threads = crate::limits::check_threads(opts.threads).map_err(RunError::input)?;
     let robot = s.load_robot().map_err(RunError::input)?;
     s.check_plans(&robot).map_err(|e| RunError::input(e.0))?;
     let all = expand(s);
@@ -311,55 +414,106 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         None => all,
     };
     let out = &opts.out;
-    let exists = out.exists()
-        && std::fs::read_dir(out)
-            .map(|mut d| d.next().is_some())
-            .unwrap_or(false);
-    let scenario_hash = sha256_hex(&s.text);
-    let mut floor = f64::NAN;
-    if exists {
-        if opts.resume {
-            let m = read_manifest(out).map_err(RunError::input)?;
-            if m["scenario_sha256"].as_str() != Some(scenario_hash.as_str()) {
-                return Err(RunError::input(format!(
-                    "{}: --resume: the folder holds a run of a different scenario ({}); refusing to mix results",
-                    out.display(),
-                    m["scenario_source"].as_str().unwrap_or("?")
-                )));
-            }
-            let shard_then = m["shard"].as_object().map(|o| {
-                (
-                    o["index"].as_u64().unwrap_or(0) as usize,
-                    o["count"].as_u64().unwrap_or(0) as usize,
-                )
-            });
-            if shard_then != opts.shard {
-                return Err(RunError::input(format!(
-                    "{}: --resume: the folder holds shard {shard_then:?}, not {:?}",
-                    out.display(),
-                    opts.shard
-                )));
-            }
-            floor = m["slip_floor_mm"].as_f64().unwrap_or(f64::NAN);
-        } else if opts.force {
-            std::fs::remove_dir_all(out)
-                .map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
-        } else {
+    let inputs = manifest_inputs(s, &robot);
+    let head = header();
+    let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
+
+    // Decide what to do with the folder before touching it; then lock it, and decide again
+    // under the lock (another process may have started meanwhile).
+    let resuming = match folder_state(out) {
+        FolderState::Missing | FolderState::Empty => false,
+        FolderState::RunFolder(_) if opts.resume => true,
+        FolderState::RunFolder(_) if opts.force => {
+            check_replaceable(out, &input_paths(s, &robot))?;
+            false
+        }
+        FolderState::Foreign(why) if opts.resume || opts.force => {
+            return Err(RunError::input(format!(
+                "{}: not a run folder of gripsweep ({why}); refusing to {} it",
+                out.display(),
+                if opts.resume { "resume" } else { "replace" }
+            )));
+        }
+        _ => {
             return Err(RunError::input(format!(
                 "{}: the output folder exists and is not empty; pass --resume to continue that run or --force to replace it",
                 out.display()
             )));
         }
-    }
+    };
     std::fs::create_dir_all(out).map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
+    let _lock = crate::run_folder::lock(out)?;
+    let state = folder_state(out);
+    let mut floor = f64::NAN;
+    let mut kept = (Vec::new(), 0u64, Vec::new(), 0u64);
+    let mut man = if resuming {
+        let FolderState::RunFolder(m) = state else {
+            return Err(RunError::input(format!(
+                "{}: changed while this command started; try again",
+                out.display()
+            )));
+        };
+        let what = format!("{}: --resume", out.display());
+        compare_inputs(&what, &m["inputs"], &inputs).map_err(RunError::input)?;
+        let shard_then = m["shard"].as_object().map(|o| {
+            (
+                o["index"].as_u64().unwrap_or(0) as usize,
+                o["count"].as_u64().unwrap_or(0) as usize,
+            )
+        });
+        if shard_then != opts.shard {
+            return Err(RunError::input(format!(
+                "{what}: the folder holds shard {shard_then:?}, not {:?}",
+                opts.shard
+            )));
+        }
+        // Every kept row is checked before anything is written.
+        let expected: HashMap<String, &Cell> = cells.iter().map(|c| (c.id(), c)).collect();
+        let (rows, keep) = kept_rows(
+            &out.join(CELLS_FILE),
+            &head,
+            cell_row_check(&head, &expected),
+        )
+        .map_err(RunError::input)?;
+        let (timing, tkeep) = kept_rows(
+            &out.join(TIMING_FILE),
+            &timing_head,
+            timing_row_check(&expected),
+        )
+        .map_err(RunError::input)?;
+        kept = (rows, keep, timing, tkeep);
+        if s.onset.is_some() {
+            let groups = onset_group_ids(s, opts.shard);
+            let head: Vec<String> = crate::onset::ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
+            kept_rows(
+                &out.join(crate::onset::ONSET_FILE),
+                &head,
+                onset_row_check(&groups),
+            )
+            .map_err(RunError::input)?;
+        }
+        floor = m["slip_floor_mm"].as_f64().unwrap_or(f64::NAN);
+        m
+    } else {
+        match state {
+            FolderState::Missing | FolderState::Empty => {}
+            FolderState::RunFolder(_) if opts.force => remove_tool_files(out)?,
+            _ => {
+                return Err(RunError::input(format!(
+                    "{}: changed while this command started; try again",
+                    out.display()
+                )));
+            }
+        }
+        Value::Null
+    };
     if floor.is_nan() {
         floor = slip_floor(s, &robot);
     }
-    let mut man = if opts.resume && exists {
-        read_manifest(out).map_err(RunError::other)?
-    } else {
-        manifest(s, &robot, opts, total, cells.len(), floor)
-    };
+    if man.is_null() {
+        man = manifest(s, &robot, opts, total, cells.len(), floor);
+    }
+    man["inputs"] = inputs;
     man["slip_floor_mm"] = json!(floor);
     if s.onset.is_some() {
         let n = crate::onset::groups(s)
@@ -370,16 +524,22 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     }
     write_manifest(out, &man).map_err(RunError::other)?;
 
-    let head = header();
-    let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
-    let (mut cells_file, done_rows) =
-        RowFile::open(&out.join(CELLS_FILE), &head).map_err(RunError::other)?;
-    let (mut timing_file, _) =
-        RowFile::open(&out.join(TIMING_FILE), &timing_head).map_err(RunError::other)?;
-    let done: HashSet<String> = done_rows.iter().map(|r| r[0].clone()).collect();
-    let todo: Vec<&Cell> = cells.iter().filter(|c| !done.contains(&c.id())).collect();
+    let (done_rows, keep, _, tkeep) = kept;
+    let mut cells_file =
+        RowFile::open(&out.join(CELLS_FILE), &head, keep).map_err(RunError::other)?;
+    let mut timing_file =
+        RowFile::open(&out.join(TIMING_FILE), &timing_head, tkeep).map_err(RunError::other)?;
+    let done: HashSet<&str> = done_rows.iter().filter_map(|r| r.get(0)).collect();
+    let todo: Vec<&Cell> = cells
+        .iter()
+        .filter(|c| !done.contains(c.id().as_str()))
+        .collect();
     let skipped = cells.len() - todo.len();
-    let mut failures = done_rows.iter().filter(|r| r[11] != "ok").count();
+    let status_col = head.iter().position(|c| c == "status").unwrap_or(0);
+    let mut failures = done_rows
+        .iter()
+        .filter(|r| r.get(status_col) != Some("ok"))
+        .count();
 
     let bar = progress_bar(cells.len() as u64, skipped as u64, opts.quiet);
     let ctx = CellContext {
@@ -404,7 +564,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         .collect();
     let plan_for = |deg: f64| plans.iter().find(|(d, _)| *d == deg).map(|(_, p)| p);
     parallel_units(
-        opts.threads,
+        threads,
         &todo,
         |cell| run_cell_with_plan(&ctx, cell, plan_for(cell.slope_deg), None),
         |done_now, i, outcome| {
@@ -452,7 +612,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         return Err(RunError::other(e));
     }
     if let Some(o) = &s.onset {
-        run_onset(s, &robot, o, opts, floor).map_err(RunError::other)?;
+        run_onset(s, &robot, o, opts, threads, floor)?;
     }
 
     // Complete: rewrite both files in matrix order, so a finished folder is byte-identical
@@ -515,8 +675,9 @@ fn run_onset(
     robot: &LoadedRobot,
     o: &crate::scenario::OnsetFile,
     opts: &RunOptions,
+    threads: Option<usize>,
     floor: f64,
-) -> Result<(), String> {
+) -> Result<(), RunError> {
     use crate::onset::{ONSET_COLUMNS, ONSET_FILE, bisect, groups, record};
     let mut all = groups(s);
     if let Some((i, k)) = opts.shard {
@@ -524,11 +685,14 @@ fn run_onset(
     }
     let head: Vec<String> = ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
     let path = opts.out.join(ONSET_FILE);
-    let (mut file, done_rows) = RowFile::open(&path, &head)?;
-    let done: HashSet<String> = done_rows.iter().map(|r| r[0].clone()).collect();
+    let ids = onset_group_ids(s, opts.shard);
+    let (done_rows, keep) =
+        kept_rows(&path, &head, onset_row_check(&ids)).map_err(RunError::input)?;
+    let mut file = RowFile::open(&path, &head, keep).map_err(RunError::other)?;
+    let done: HashSet<&str> = done_rows.iter().filter_map(|r| r.get(0)).collect();
     let todo: Vec<_> = all
         .into_iter()
-        .filter(|g| !done.contains(&g.id()))
+        .filter(|g| !done.contains(g.id().as_str()))
         .collect();
     if !opts.quiet && !todo.is_empty() {
         eprintln!(
@@ -538,7 +702,7 @@ fn run_onset(
     }
     let mut err = None;
     parallel_units(
-        opts.threads,
+        threads,
         &todo,
         |g| bisect(s, robot, o, g, floor),
         |_, i, (deg, runs)| {
@@ -548,13 +712,23 @@ fn run_onset(
                 err = Some(format!("{}: {e}", path.display()));
             }
         },
-    )?;
+    )
+    .map_err(RunError::other)?;
     if let Some(e) = err {
-        return Err(e);
+        return Err(RunError::other(e));
     }
-    let (_, mut rows) = read_rows(&path)?;
+    let (_, mut rows) = read_rows(&path).map_err(RunError::other)?;
     rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
-    write_sorted(&path, &head, &rows)
+    write_sorted(&path, &head, &rows).map_err(RunError::other)
+}
+
+/// The ids of the slip-onset groups of a scenario (of one shard).
+fn onset_group_ids(s: &Scenario, shard: Option<(usize, usize)>) -> HashSet<String> {
+    crate::onset::groups(s)
+        .into_iter()
+        .filter(|g| shard.is_none_or(|(i, k)| g.index % k == i))
+        .map(|g| g.id())
+        .collect()
 }
 
 fn progress_bar(len: u64, pos: u64, quiet: bool) -> ProgressBar {
@@ -594,22 +768,32 @@ fn read_rows(path: &Path) -> Result<(Vec<String>, Vec<Vec<String>>), String> {
 
 fn finalize(out: &Path, head: &[String], timing_head: &[String]) -> Result<(), String> {
     let (_, mut rows) = read_rows(&out.join(CELLS_FILE))?;
-    rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
+    sort_rows(&mut rows);
     write_sorted(&out.join(CELLS_FILE), head, &rows)?;
-    let order: Vec<String> = rows.iter().map(|r| r[0].clone()).collect();
     let (_, mut timing) = read_rows(&out.join(TIMING_FILE))?;
-    timing.sort_by_key(|r| {
-        order
-            .iter()
-            .position(|id| *id == r[0])
-            .unwrap_or(usize::MAX)
-    });
-    timing.dedup_by(|a, b| a[0] == b[0]);
+    sort_timing(&mut timing, &rows);
     write_sorted(&out.join(TIMING_FILE), timing_head, &timing)
 }
 
-/// Join shard folders into `out`: refuses mixed scenarios, missing or incomplete shards,
-/// naming them.
+/// Cell rows in matrix order (by their index column), O(n log n).
+pub fn sort_rows(rows: &mut [Vec<String>]) {
+    rows.sort_by_cached_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
+}
+
+/// Timing rows in the order of `cells` (sorted cell rows), one per cell: a map from id to
+/// position, so O(n log n) rather than a search per row.
+pub fn sort_timing(timing: &mut Vec<Vec<String>>, cells: &[Vec<String>]) {
+    let order: HashMap<&str, usize> = cells
+        .iter()
+        .enumerate()
+        .map(|(i, r)| (r[0].as_str(), i))
+        .collect();
+    timing.sort_by_cached_key(|r| order.get(r[0].as_str()).copied().unwrap_or(usize::MAX));
+    timing.dedup_by(|a, b| a[0] == b[0]);
+}
+
+/// Join shard folders into `out`: refuses mixed inputs, missing, incomplete or damaged shards,
+/// naming the shard (and file and line), and checks everything before it writes anything.
 pub fn merge(
     dirs: &[PathBuf],
     out: &Path,
@@ -621,7 +805,14 @@ pub fn merge(
     }
     let mut shards = Vec::new();
     for d in dirs {
+        crate::run_folder::check_not_written(d)?;
         let m = read_manifest(d).map_err(RunError::input)?;
+        if m["tool"] != "gripsweep" {
+            return Err(RunError::input(format!(
+                "{}: not a run folder of gripsweep",
+                d.display()
+            )));
+        }
         let Some(sh) = m["shard"].as_object() else {
             return Err(RunError::input(format!(
                 "{}: not a shard (its manifest has no shard)",
@@ -633,17 +824,22 @@ pub fn merge(
             sh["count"].as_u64().unwrap_or(0) as usize,
             sh["cells"].as_u64().unwrap_or(0) as usize,
         );
-        shards.push((d.clone(), m, i, k, n));
-    }
-    let (first_hash, k) = (shards[0].1["scenario_sha256"].clone(), shards[0].3);
-    for (d, m, _, kk, _) in &shards {
-        if m["scenario_sha256"] != first_hash {
+        if k == 0 {
             return Err(RunError::input(format!(
-                "{}: a shard of a different scenario than {}",
-                d.display(),
-                shards[0].0.display()
+                "{}: {MANIFEST_FILE}: field `shard.count`: not a shard count",
+                d.display()
             )));
         }
+        shards.push((d.clone(), m, i, k, n));
+    }
+    let (first_inputs, k) = (shards[0].1["inputs"].clone(), shards[0].3);
+    for (d, m, _, kk, _) in &shards {
+        let what = format!(
+            "{}: a shard made from other inputs than {}",
+            d.display(),
+            shards[0].0.display()
+        );
+        compare_inputs(&what, &first_inputs, &m["inputs"]).map_err(RunError::input)?;
         if *kk != k {
             return Err(RunError::input(format!(
                 "{}: a shard of {kk}, the others of {k}",
@@ -680,24 +876,60 @@ pub fn merge(
             missing.join(", ")
         )));
     }
-    let mut all_rows = Vec::new();
-    let mut all_timing = Vec::new();
+    // The matrix the shards were made from, from the manifest (the same in every shard: the
+    // inputs are equal), to check every row against.
+    let all_cells = crate::run_folder::cells_of_manifest(&shards[0].1).map_err(|e| {
+        RunError::input(format!(
+            "{}: {MANIFEST_FILE}: {e}",
+            shards[0].0.display()
+        ))
+    })?;
+    let head = header();
+    let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
+    let mut all_rows: Vec<Vec<String>> = Vec::with_capacity(all_cells.len());
+    let mut all_timing: Vec<Vec<String>> = Vec::with_capacity(all_cells.len());
     let mut incomplete = Vec::new();
     for (d, m, i, _, n) in &shards {
-        let (_, rows) = read_rows(&d.join(CELLS_FILE)).map_err(RunError::input)?;
-        let unique: HashSet<&String> = rows.iter().map(|r| &r[0]).collect();
-        if unique.len() != *n || m["finished_unix_s"].is_null() {
+        let expected: HashMap<String, &Cell> = all_cells
+            .iter()
+            .filter(|c| c.index % k == *i)
+            .map(|c| (c.id(), c))
+            .collect();
+        if expected.len() != *n {
+            return Err(RunError::input(format!(
+                "{}: {MANIFEST_FILE}: field `shard.cells` = {n}, but shard {}/{k} of the matrix has {} cells",
+                d.display(),
+                i + 1,
+                expected.len()
+            )));
+        }
+        let read = |file: &str, head: &[String], check: &mut dyn FnMut(&csv::StringRecord) -> Result<(), String>| {
+            let path = d.join(file);
+            let (bytes, torn) = crate::run_folder::complete_lines(&path)?;
+            if torn {
+                return Err(format!(
+                    "{}: the last line is incomplete (the shard was killed while writing); finish it with --resume",
+                    path.display()
+                ));
+            }
+            crate::run_folder::check_rows(&path, &bytes, head, check)
+        };
+        let rows = read(CELLS_FILE, &head, &mut cell_row_check(&head, &expected))
+            .map_err(RunError::input)?;
+        if rows.len() != *n || m["finished_unix_s"].is_null() {
             incomplete.push(format!(
                 "{}/{k} ({} of {n} cells, in {})",
                 i + 1,
-                unique.len(),
+                rows.len(),
                 d.display()
             ));
             continue;
         }
-        all_rows.extend(rows);
-        if let Ok((_, t)) = read_rows(&d.join(TIMING_FILE)) {
-            all_timing.extend(t);
+        all_rows.extend(rows.iter().map(|r| r.iter().map(String::from).collect()));
+        if d.join(TIMING_FILE).exists() {
+            let t = read(TIMING_FILE, &timing_head, &mut timing_row_check(&expected))
+                .map_err(RunError::input)?;
+            all_timing.extend(t.iter().map(|r| r.iter().map(String::from).collect()));
         }
     }
     if !incomplete.is_empty() {
@@ -706,47 +938,37 @@ pub fn merge(
             incomplete.join(", ")
         )));
     }
-    if out.exists()
-        && std::fs::read_dir(out)
-            .map(|mut r| r.next().is_some())
-            .unwrap_or(false)
-    {
-        if !force {
-            return Err(RunError::input(format!(
-                "{}: the output folder exists and is not empty; pass --force to replace it",
-                out.display()
-            )));
-        }
-        std::fs::remove_dir_all(out)
-            .map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
-    }
-    std::fs::create_dir_all(out).map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
-    all_rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
-    let head = header();
-    write_sorted(&out.join(CELLS_FILE), &head, &all_rows).map_err(RunError::other)?;
-    let order: Vec<String> = all_rows.iter().map(|r| r[0].clone()).collect();
-    all_timing.sort_by_key(|r| {
-        order
-            .iter()
-            .position(|id| *id == r[0])
-            .unwrap_or(usize::MAX)
-    });
-    let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
-    write_sorted(&out.join(TIMING_FILE), &timing_head, &all_timing).map_err(RunError::other)?;
-    // The slip-onset study, when the scenario has one: every shard's groups, complete.
+    // The slip-onset study, when the scenario has one: every shard's groups, complete and
+    // checked, before anything is written.
+    let mut onset_rows: Option<Vec<Vec<String>>> = None;
     if shards[0]
         .1
         .get("onset_groups")
         .is_some_and(|v| !v.is_null())
     {
         use crate::onset::{ONSET_COLUMNS, ONSET_FILE};
+        let head: Vec<String> = ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
         let mut rows = Vec::new();
         let mut short = Vec::new();
         for (d, m, i, _, _) in &shards {
             let want = m["onset_groups"].as_u64().unwrap_or(0) as usize;
-            let got = read_rows(&d.join(ONSET_FILE))
-                .map(|(_, r)| r)
-                .unwrap_or_default();
+            let path = d.join(ONSET_FILE);
+            let got = if path.exists() {
+                let (bytes, _) =
+                    crate::run_folder::complete_lines(&path).map_err(RunError::input)?;
+                let mut ids = HashSet::new();
+                crate::run_folder::check_rows(&path, &bytes, &head, |r| {
+                    let id = r.get(0).unwrap_or("").to_string();
+                    if ids.insert(id.clone()) {
+                        Ok(())
+                    } else {
+                        Err(format!("column `group_id`: group {id} appears twice"))
+                    }
+                })
+                .map_err(RunError::input)?
+            } else {
+                Vec::new()
+            };
             if got.len() != want {
                 short.push(format!(
                     "{}/{k} ({} of {want} onset groups, in {})",
@@ -755,16 +977,46 @@ pub fn merge(
                     d.display()
                 ));
             }
-            rows.extend(got);
+            rows.extend(got.iter().map(|r| r.iter().map(String::from).collect::<Vec<_>>()));
         }
         if !short.is_empty() {
-            let _ = std::fs::remove_dir_all(out);
             return Err(RunError::input(format!(
                 "merge: incomplete slip-onset study in shard(s) {}; resume them and merge again",
                 short.join(", ")
             )));
         }
-        rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
+        sort_rows(&mut rows);
+        onset_rows = Some(rows);
+    }
+
+    // Everything checked: now the output folder.
+    match folder_state(out) {
+        FolderState::Missing | FolderState::Empty => {}
+        FolderState::RunFolder(_) if force => check_replaceable(out, dirs)?,
+        FolderState::Foreign(why) if force => {
+            return Err(RunError::input(format!(
+                "{}: --force: not a run folder of gripsweep ({why}); refusing to replace it",
+                out.display()
+            )));
+        }
+        _ => {
+            return Err(RunError::input(format!(
+                "{}: the output folder exists and is not empty; pass --force to replace it",
+                out.display()
+            )));
+        }
+    }
+    std::fs::create_dir_all(out).map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
+    let _lock = crate::run_folder::lock(out)?;
+    if force {
+        remove_tool_files(out)?;
+    }
+    sort_rows(&mut all_rows);
+    write_sorted(&out.join(CELLS_FILE), &head, &all_rows).map_err(RunError::other)?;
+    sort_timing(&mut all_timing, &all_rows);
+    write_sorted(&out.join(TIMING_FILE), &timing_head, &all_timing).map_err(RunError::other)?;
+    if let Some(rows) = onset_rows {
+        use crate::onset::{ONSET_COLUMNS, ONSET_FILE};
         let head: Vec<String> = ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
         write_sorted(&out.join(ONSET_FILE), &head, &rows).map_err(RunError::other)?;
     }
