@@ -263,7 +263,8 @@ impl RobotFacts {
                         j.name,
                         match field {
                             "torque_constant_error" => "in (−1, 1)",
-                            "torque_loop_rate" => "from 2 to 1e6 Hz (its period is a delay ≤ 0.5 s)",
+                            "torque_loop_rate" =>
+                                "from 2 to 1e6 Hz (its period is a delay ≤ 0.5 s)",
                             "delay" => "from 0 to 0.5 s",
                             "lag" => "from 0 to 10 s",
                             "torque_loop_gain" => "from 0 to 1e6",

@@ -67,7 +67,8 @@ pub fn read_text_bounded(path: &Path, limit: u64, what: &str) -> Result<String, 
             meta.len()
         ));
     }
-    let file = std::fs::File::open(path).map_err(|e| format!("{shown}: cannot read {what}: {e}"))?;
+    let file =
+        std::fs::File::open(path).map_err(|e| format!("{shown}: cannot read {what}: {e}"))?;
     let mut bytes = Vec::new();
     file.take(limit + 1)
         .read_to_end(&mut bytes)

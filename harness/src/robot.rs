@@ -1,8 +1,8 @@
 //! Loading a robot: the facts TOML, the URDF it names, the rigid-body model with the facts
 //! applied. The demo quadruped is compiled into the binary so the tool runs with no files.
 
-use gripsweep_controllers::{Model, RobotFacts, RootKind};
 use crate::limits::{MAX_FACTS_BYTES, MAX_URDF_BYTES, check_toml_depth, read_text_bounded};
+use gripsweep_controllers::{Model, RobotFacts, RootKind};
 use std::path::{Path, PathBuf};
 
 /// The demo quadruped's files, embedded.
@@ -42,13 +42,8 @@ impl LoadedRobot {
         let facts = RobotFacts::from_toml_str(&facts_text)
             .map_err(|e| format!("{}: {e}", path.display()))?;
         let urdf_path: PathBuf = path.parent().unwrap_or(Path::new(".")).join(&facts.urdf);
-        let urdf_text = read_text_bounded(&urdf_path, MAX_URDF_BYTES, "the URDF").map_err(|e| {
-            format!(
-                "{}: field `urdf` = \"{}\": {e}",
-                path.display(),
-                facts.urdf
-            )
-        })?;
+        let urdf_text = read_text_bounded(&urdf_path, MAX_URDF_BYTES, "the URDF")
+            .map_err(|e| format!("{}: field `urdf` = \"{}\": {e}", path.display(), facts.urdf))?;
         Self::from_texts(
             &path.display().to_string(),
             &facts_text,

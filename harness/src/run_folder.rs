@@ -29,10 +29,7 @@ fn tool_files() -> Vec<String> {
     .iter()
     .map(|s| s.to_string())
     .collect();
-    let tmp: Vec<String> = names
-        .iter()
-        .map(|n| format!("{n}.tmp"))
-        .collect();
+    let tmp: Vec<String> = names.iter().map(|n| format!("{n}.tmp")).collect();
     names.extend(tmp);
     names
 }
@@ -97,8 +94,9 @@ pub fn read_manifest(dir: &Path) -> Result<Value, String> {
 /// the current folder nor an ancestor of it, and holds none of `inputs`. Nothing is touched.
 pub fn check_replaceable(out: &Path, inputs: &[PathBuf]) -> Result<(), RunError> {
     let shown = out.display();
-    let canon = std::fs::canonicalize(out)
-        .map_err(|e| RunError::input(format!("{shown}: --force: cannot resolve the folder: {e}")))?;
+    let canon = std::fs::canonicalize(out).map_err(|e| {
+        RunError::input(format!("{shown}: --force: cannot resolve the folder: {e}"))
+    })?;
     if let Ok(cwd) = std::env::current_dir().and_then(std::fs::canonicalize)
         && cwd.starts_with(&canon)
     {
@@ -127,7 +125,9 @@ pub fn check_replaceable(out: &Path, inputs: &[PathBuf]) -> Result<(), RunError>
 /// Remove the files this tool writes in a run folder (not the lock, not anything else: a
 /// user's own files in it stay).
 pub fn remove_tool_files(dir: &Path) -> Result<(), RunError> {
-    let gone = |p: &Path, e: std::io::Error| RunError::other(format!("{}: cannot remove: {e}", p.display()));
+    let gone = |p: &Path, e: std::io::Error| {
+        RunError::other(format!("{}: cannot remove: {e}", p.display()))
+    };
     for name in tool_files() {
         let p = dir.join(&name);
         if p.is_file() {
@@ -139,9 +139,7 @@ pub fn remove_tool_files(dir: &Path) -> Result<(), RunError> {
         let entries = std::fs::read_dir(&plots).map_err(|e| gone(&plots, e))?;
         for e in entries.filter_map(|e| e.ok()) {
             let p = e.path();
-            let ours = p
-                .extension()
-                .is_some_and(|x| x == "svg" || x == "png");
+            let ours = p.extension().is_some_and(|x| x == "svg" || x == "png");
             if ours && p.is_file() {
                 std::fs::remove_file(&p).map_err(|e| gone(&p, e))?;
             }
@@ -256,7 +254,8 @@ pub fn complete_lines(path: &Path) -> Result<(Vec<u8>, bool), String> {
     if !meta.is_file() {
         return Err(format!("{}: not a regular file", path.display()));
     }
-    let mut bytes = std::fs::read(path).map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+    let mut bytes =
+        std::fs::read(path).map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
     let keep = bytes.iter().rposition(|b| *b == b'\n').map_or(0, |i| i + 1);
     let torn = keep < bytes.len();
     bytes.truncate(keep);
@@ -314,7 +313,10 @@ pub fn cells_of_manifest(m: &Value) -> Result<Vec<Cell>, String> {
         a[k].as_array()
             .ok_or_else(|| format!("field `axes.{k}` missing"))?
             .iter()
-            .map(|v| v.as_f64().ok_or_else(|| format!("field `axes.{k}`: not a number")))
+            .map(|v| {
+                v.as_f64()
+                    .ok_or_else(|| format!("field `axes.{k}`: not a number"))
+            })
             .collect()
     };
     let strs = |k: &str| -> Result<Vec<String>, String> {

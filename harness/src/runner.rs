@@ -8,14 +8,14 @@ use crate::metrics::{CellMetrics, CellStatus};
 use crate::planner::Gait;
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
-use crate::scenario::Scenario;
-use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use rayon::prelude::*;
-use serde_json::{Value, json};
 use crate::run_folder::{
     FolderState, check_replaceable, compare_inputs, folder_state, input_entry, read_manifest,
     remove_tool_files, sha256_hex,
 };
+use crate::scenario::Scenario;
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use rayon::prelude::*;
+use serde_json::{Value, json};
 use std::collections::{HashMap, HashSet};
 use std::fs::{File, OpenOptions};
 use std::io::{IsTerminal, Seek, SeekFrom, Write};
@@ -484,7 +484,10 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         kept = (rows, keep, timing, tkeep);
         if s.onset.is_some() {
             let groups = onset_group_ids(s, opts.shard);
-            let head: Vec<String> = crate::onset::ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
+            let head: Vec<String> = crate::onset::ONSET_COLUMNS
+                .iter()
+                .map(|c| c.to_string())
+                .collect();
             kept_rows(
                 &out.join(crate::onset::ONSET_FILE),
                 &head,
@@ -878,12 +881,8 @@ pub fn merge(
     }
     // The matrix the shards were made from, from the manifest (the same in every shard: the
     // inputs are equal), to check every row against.
-    let all_cells = crate::run_folder::cells_of_manifest(&shards[0].1).map_err(|e| {
-        RunError::input(format!(
-            "{}: {MANIFEST_FILE}: {e}",
-            shards[0].0.display()
-        ))
-    })?;
+    let all_cells = crate::run_folder::cells_of_manifest(&shards[0].1)
+        .map_err(|e| RunError::input(format!("{}: {MANIFEST_FILE}: {e}", shards[0].0.display())))?;
     let head = header();
     let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
     let mut all_rows: Vec<Vec<String>> = Vec::with_capacity(all_cells.len());
@@ -903,17 +902,20 @@ pub fn merge(
                 expected.len()
             )));
         }
-        let read = |file: &str, head: &[String], check: &mut dyn FnMut(&csv::StringRecord) -> Result<(), String>| {
-            let path = d.join(file);
-            let (bytes, torn) = crate::run_folder::complete_lines(&path)?;
-            if torn {
-                return Err(format!(
-                    "{}: the last line is incomplete (the shard was killed while writing); finish it with --resume",
-                    path.display()
-                ));
-            }
-            crate::run_folder::check_rows(&path, &bytes, head, check)
-        };
+        let read =
+            |file: &str,
+             head: &[String],
+             check: &mut dyn FnMut(&csv::StringRecord) -> Result<(), String>| {
+                let path = d.join(file);
+                let (bytes, torn) = crate::run_folder::complete_lines(&path)?;
+                if torn {
+                    return Err(format!(
+                        "{}: the last line is incomplete (the shard was killed while writing); finish it with --resume",
+                        path.display()
+                    ));
+                }
+                crate::run_folder::check_rows(&path, &bytes, head, check)
+            };
         let rows = read(CELLS_FILE, &head, &mut cell_row_check(&head, &expected))
             .map_err(RunError::input)?;
         if rows.len() != *n || m["finished_unix_s"].is_null() {
@@ -977,7 +979,10 @@ pub fn merge(
                     d.display()
                 ));
             }
-            rows.extend(got.iter().map(|r| r.iter().map(String::from).collect::<Vec<_>>()));
+            rows.extend(
+                got.iter()
+                    .map(|r| r.iter().map(String::from).collect::<Vec<_>>()),
+            );
         }
         if !short.is_empty() {
             return Err(RunError::input(format!(

@@ -3,16 +3,16 @@
 //! allowed names), then validated field by field before anything runs; every message names the
 //! file and the field. The default scenario is compiled into the binary.
 
+use crate::limits::{
+    AXIS_TOLERANCE, MAX_AXIS_VALUES, MAX_CELLS, MAX_DELAY_S, MAX_DELAY_STEPS, MAX_SEEDS,
+    MAX_STEPS_PER_CELL, MIN_DT, MIN_DURATION_S, same_axis_value,
+};
 use crate::planner::Gait;
 use crate::plant::PlantSettings;
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
 use gripsweep_controllers::laws::{LawSettings, law_names};
 use serde::Deserialize;
-use crate::limits::{
-    AXIS_TOLERANCE, MAX_AXIS_VALUES, MAX_CELLS, MAX_DELAY_S, MAX_DELAY_STEPS, MAX_SEEDS,
-    MAX_STEPS_PER_CELL, MIN_DT, MIN_DURATION_S, same_axis_value,
-};
 use std::path::{Path, PathBuf};
 
 /// Largest gait length (m) or period (s) accepted.
@@ -265,7 +265,8 @@ impl Scenario {
         text: &str,
         dir: Option<&Path>,
     ) -> Result<Scenario, ScenarioError> {
-        crate::limits::check_toml_depth(text).map_err(|e| ScenarioError(format!("{source}: {e}")))?;
+        crate::limits::check_toml_depth(text)
+            .map_err(|e| ScenarioError(format!("{source}: {e}")))?;
         let file: ScenarioFile = toml::from_str(text)
             .map_err(|e| ScenarioError(format!("{source}: {}", e.to_string().trim_end())))?;
         let fail =
@@ -592,7 +593,10 @@ impl Scenario {
         if actuator_names.len() > MAX_AXIS_VALUES {
             return Err(fail(
                 "axes.actuator",
-                format!("{} values: allowed: at most {MAX_AXIS_VALUES}", actuator_names.len()),
+                format!(
+                    "{} values: allowed: at most {MAX_AXIS_VALUES}",
+                    actuator_names.len()
+                ),
             ));
         }
         nonempty("axes.actuator", actuator_names.len())?;
@@ -618,7 +622,10 @@ impl Scenario {
         if controller.len() > MAX_AXIS_VALUES {
             return Err(fail(
                 "axes.controller",
-                format!("{} values: allowed: at most {MAX_AXIS_VALUES}", controller.len()),
+                format!(
+                    "{} values: allowed: at most {MAX_AXIS_VALUES}",
+                    controller.len()
+                ),
             ));
         }
         for (i, c) in controller.iter().enumerate() {
