@@ -75,7 +75,8 @@ pub struct RunSummary {
     pub wall_s: f64,
 }
 
-fn header() -> Vec<String> {
+/// The columns of `cells.csv`.
+pub fn header() -> Vec<String> {
     // Identity, the axes (crate::matrix::AXIS_NAMES), the outcome, the metrics.
     let mut h: Vec<String> = ["cell_id", "index"]
         .iter()
@@ -767,6 +768,12 @@ fn read_rows(path: &Path) -> Result<(Vec<String>, Vec<Vec<String>>), String> {
         );
     }
     Ok((head, rows))
+}
+
+/// The end-of-run rewrite of a run folder: `cells.csv` and `timing.csv` in matrix order.
+pub fn rewrite_in_matrix_order(out: &Path) -> Result<(), String> {
+    let timing_head: Vec<String> = TIMING_COLUMNS.iter().map(|s| s.to_string()).collect();
+    finalize(out, &header(), &timing_head)
 }
 
 fn finalize(out: &Path, head: &[String], timing_head: &[String]) -> Result<(), String> {
