@@ -59,18 +59,32 @@ fn main() {
                 "ok".into(),
                 String::new(),
             ];
-            r.extend((0..CellMetrics::COLUMNS.len()).map(|k| format!("{}", 0.1234567 * (k + c.index) as f64)));
+            r.extend(
+                (0..CellMetrics::COLUMNS.len())
+                    .map(|k| format!("{}", 0.1234567 * (k + c.index) as f64)),
+            );
             r
         })
         .collect();
     rows.shuffle(&mut rng);
     let timing: Vec<Vec<String>> = rows
         .iter()
-        .map(|r| vec![r[0].clone(), "812.5".into(), "1490.25".into(), "3.104".into()])
+        .map(|r| {
+            vec![
+                r[0].clone(),
+                "812.5".into(),
+                "1490.25".into(),
+                "3.104".into(),
+            ]
+        })
         .collect();
     let head = runner::header();
-    let timing_head: Vec<String> = runner::TIMING_COLUMNS.iter().map(|c| c.to_string()).collect();
-    let root = std::env::temp_dir().join(format!("gripsweep-bench-run-folder-{}", std::process::id()));
+    let timing_head: Vec<String> = runner::TIMING_COLUMNS
+        .iter()
+        .map(|c| c.to_string())
+        .collect();
+    let root =
+        std::env::temp_dir().join(format!("gripsweep-bench-run-folder-{}", std::process::id()));
     let _ = std::fs::remove_dir_all(&root);
     let inputs = runner::manifest_inputs(&s, &robot);
     let a = &s.axes;
@@ -109,7 +123,11 @@ fn main() {
         let pick = |r: &&Vec<String>| r[1].parse::<usize>().unwrap() % k == i;
         let r: Vec<Vec<String>> = rows.iter().filter(pick).cloned().collect();
         let ids: std::collections::HashSet<&String> = r.iter().map(|x| &x[0]).collect();
-        let t: Vec<Vec<String>> = timing.iter().filter(|x| ids.contains(&x[0])).cloned().collect();
+        let t: Vec<Vec<String>> = timing
+            .iter()
+            .filter(|x| ids.contains(&x[0]))
+            .cloned()
+            .collect();
         let d = root.join(format!("shard-{i}"));
         write_folder(&d, &r, &t, Some((i, k, r.len())));
         shard_dirs.push(d);

@@ -666,50 +666,166 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
 
     const TABLES: [(&str, &[&str]); 9] = [
         ("", &["name", "robot", "duration", "seeds"]),
-        ("gait", &["kind", "step_length", "swing_height", "cycle_period", "body_height", "margin", "amplitude", "period"]),
-        ("plant", &["dt", "substeps", "contact_hz", "contact_damping", "joint_limits"]),
-        ("laws", &["mu_estimate_scale", "stiff_kp", "joint_kd", "cone_margin"]),
-        ("axes", &["slope_deg", "mu", "rate_hz", "actuator", "controller", "mass_scale", "com_shift_mm", "sensor_noise"]),
-        ("noise", &["joint_angle", "joint_rate", "base_position", "delay"]),
+        (
+            "gait",
+            &[
+                "kind",
+                "step_length",
+                "swing_height",
+                "cycle_period",
+                "body_height",
+                "margin",
+                "amplitude",
+                "period",
+            ],
+        ),
+        (
+            "plant",
+            &[
+                "dt",
+                "substeps",
+                "contact_hz",
+                "contact_damping",
+                "joint_limits",
+            ],
+        ),
+        (
+            "laws",
+            &["mu_estimate_scale", "stiff_kp", "joint_kd", "cone_margin"],
+        ),
+        (
+            "axes",
+            &[
+                "slope_deg",
+                "mu",
+                "rate_hz",
+                "actuator",
+                "controller",
+                "mass_scale",
+                "com_shift_mm",
+                "sensor_noise",
+            ],
+        ),
+        (
+            "noise",
+            &["joint_angle", "joint_rate", "base_position", "delay"],
+        ),
         ("falls", &["min_height_share", "max_tilt_deg"]),
         ("onset", &["lo_deg", "hi_deg", "steps", "threshold_mm"]),
         ("nonsense", &["x"]),
     ];
     const NUMBERS: [&str; 22] = [
-        "0", "-1", "1", "0.5", "4.0", "1e308", "-1e308", "nan", "inf", "-inf", "1e-300",
-        "5e-324", "4294967296", "18446744073709551615", "-9223372036854775808", "1000", "1e-5",
-        "600", "0.001", "100000", "3.2", "1e6",
+        "0",
+        "-1",
+        "1",
+        "0.5",
+        "4.0",
+        "1e308",
+        "-1e308",
+        "nan",
+        "inf",
+        "-inf",
+        "1e-300",
+        "5e-324",
+        "4294967296",
+        "18446744073709551615",
+        "-9223372036854775808",
+        "1000",
+        "1e-5",
+        "600",
+        "0.001",
+        "100000",
+        "3.2",
+        "1e6",
     ];
     const STRINGS: [&str; 12] = [
-        "\"stand\"", "\"crawl\"", "\"trot\"", "\"weight-shift\"", "\"embedded:brindle\"",
-        "\"../../nowhere.toml\"", "\"\"", "\"ideal\"", "\"stiff-pd\"", "\"id-grip-load\"",
-        "\"torque-loop\"", "\"\\u00e9\\u4e2d\"",
+        "\"stand\"",
+        "\"crawl\"",
+        "\"trot\"",
+        "\"weight-shift\"",
+        "\"embedded:brindle\"",
+        "\"../../nowhere.toml\"",
+        "\"\"",
+        "\"ideal\"",
+        "\"stiff-pd\"",
+        "\"id-grip-load\"",
+        "\"torque-loop\"",
+        "\"\\u00e9\\u4e2d\"",
     ];
     fn value(rng: &mut ChaCha8Rng, depth: u32) -> String {
         match rng.random_range(0..10) {
             0..=3 => NUMBERS[rng.random_range(0..NUMBERS.len())].to_string(),
-            4 => format!("{}", rng.random::<f64>() * 10f64.powi(rng.random_range(-6..7))),
+            4 => format!(
+                "{}",
+                rng.random::<f64>() * 10f64.powi(rng.random_range(-6..7))
+            ),
             5 => STRINGS[rng.random_range(0..STRINGS.len())].to_string(),
             6 => ["true", "false"][rng.random_range(0..2)].to_string(),
+            7 if depth == 0 && rng.random_range(0..10) == 0 => {
+                // A long axis of numbers.
+                let items: Vec<String> = (0..1500)
+                    .map(|_| NUMBERS[rng.random_range(0..NUMBERS.len())].to_string())
+                    .collect();
+                format!("[{}]", items.join(", "))
+            }
             7 | 8 if depth < 3 => {
-                let n = if rng.random_range(0..20) == 0 { 1500 } else { rng.random_range(0..6) };
+                let n = rng.random_range(0..6);
                 let items: Vec<String> = (0..n).map(|_| value(rng, depth + 1)).collect();
                 format!("[{}]", items.join(", "))
             }
             _ => format!("{{ k = {} }}", NUMBERS[rng.random_range(0..NUMBERS.len())]),
         }
     }
+    /// A value the validator should accept for `key` (tame cases).
+    fn plausible(key: &str) -> &'static str {
+        match key {
+            "name" => "\"tame\"",
+            "duration" => "4.0",
+            "seeds" => "2",
+            "kind" => "\"stand\"",
+            "cycle_period" => "3.2",
+            "period" => "2.0",
+            "dt" => "0.0005",
+            "substeps" => "4",
+            "contact_hz" => "50.0",
+            "contact_damping" => "1.0",
+            "joint_limits" => "true",
+            "slope_deg" => "[0.0, 5.0]",
+            "mu" => "[0.5, 0.9]",
+            "rate_hz" => "[500.0]",
+            "actuator" => "[\"ideal\", \"open-current\"]",
+            "controller" => "[\"stiff-pd\"]",
+            "mass_scale" => "[1.0]",
+            "com_shift_mm" => "[0.0, 10.0]",
+            "sensor_noise" => "[0.0, 1.0]",
+            "delay" => "0.002",
+            "min_height_share" => "0.5",
+            "max_tilt_deg" => "45.0",
+            "lo_deg" => "0.0",
+            "hi_deg" => "20.0",
+            "steps" => "4",
+            "threshold_mm" => "1.0",
+            _ => "0.03",
+        }
+    }
     let mut rng = ChaCha8Rng::seed_from_u64(11);
     let started = Instant::now();
     let mut samples: Vec<(String, bool)> = Vec::new();
     let (mut accepted, mut cases) = (0usize, 0usize);
+    let mut slowest = Duration::ZERO;
     while cases < 3000 && started.elapsed() < Duration::from_secs(20) {
         cases += 1;
+        // Tame cases: known tables, plausible values with a rare wild one, no damage (so some
+        // are accepted); wild cases: anything.
+        let tame = rng.random_range(0..10) < 4;
         let mut text = String::new();
-        if rng.random_range(0..10) < 9 {
+        if tame || rng.random_range(0..10) < 9 {
             text.push_str("name = \"fuzz\"\n");
         }
         for (table, keys) in TABLES {
+            if tame && (table == "laws" || table == "nonsense" || table == "onset") {
+                continue;
+            }
             if !table.is_empty() {
                 if rng.random_range(0..3) == 0 {
                     continue;
@@ -717,13 +833,21 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
                 text.push_str(&format!("[{table}]\n"));
             }
             for key in keys.iter() {
+                if tame && (*key == "name" || *key == "robot") {
+                    continue;
+                }
                 if rng.random_range(0..3) == 0 {
-                    text.push_str(&format!("{key} = {}\n", value(&mut rng, 0)));
+                    let v = if tame && rng.random_range(0..30) != 0 {
+                        plausible(key).to_string()
+                    } else {
+                        value(&mut rng, 0)
+                    };
+                    text.push_str(&format!("{key} = {v}\n"));
                 }
             }
         }
         // Byte-level damage: cut a stretch, or insert brackets, quotes or a stray byte.
-        if rng.random_range(0..4) == 0 && !text.is_empty() {
+        if !tame && rng.random_range(0..4) == 0 && !text.is_empty() {
             let mut bytes = text.into_bytes();
             let at = rng.random_range(0..bytes.len());
             match rng.random_range(0..3) {
@@ -732,7 +856,8 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
                     bytes.drain(at..end);
                 }
                 1 => {
-                    let junk = [b'[', b']', b'{', b'"', b'=', b'\n', b'#', 0xff][rng.random_range(0..8)];
+                    let junk =
+                        [b'[', b']', b'{', b'"', b'=', b'\n', b'#', 0xff][rng.random_range(0..8)];
                     bytes.insert(at, junk);
                 }
                 _ => bytes.truncate(at),
@@ -745,18 +870,26 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
         let Ok(result) = result else {
             panic!("the validator panicked on:\n{text}");
         };
-        assert!(took < Duration::from_secs(1), "took {took:?} on:\n{text}");
+        // A bound against hangs, not a performance figure (the machine may be shared).
+        assert!(took < Duration::from_secs(10), "took {took:?} on:\n{text}");
+        slowest = slowest.max(took);
         match result {
             Ok(sc) => {
                 accepted += 1;
-                assert!(sc.cell_count() >= 1 && sc.cell_count() <= MAX_CELLS, "{text}");
+                assert!(
+                    sc.cell_count() >= 1 && sc.cell_count() <= MAX_CELLS,
+                    "{text}"
+                );
                 assert!(sc.duration / sc.plant.dt <= MAX_STEPS_PER_CELL, "{text}");
                 if samples.iter().filter(|s| s.1).count() < 2 && sc.cell_count() <= 20 {
                     samples.push((text, true));
                 }
             }
             Err(e) => {
-                assert!(e.0.starts_with("fuzz.toml"), "message does not name the file: {e}");
+                assert!(
+                    e.0.starts_with("fuzz.toml"),
+                    "message does not name the file: {e}"
+                );
                 assert!(!e.0.is_empty());
                 if samples.iter().filter(|s| !s.1).count() < 10 {
                     samples.push((text, false));
@@ -764,8 +897,12 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
             }
         }
     }
+    eprintln!("{cases} cases, {accepted} accepted, slowest {slowest:?}");
     assert!(cases >= 200, "only {cases} cases in the time bound");
-    assert!(accepted > 0, "no generated scenario was valid: the generator is too wild");
+    assert!(
+        accepted > 0,
+        "no generated scenario was valid: the generator is too wild"
+    );
     assert!(accepted < cases, "no generated scenario was refused");
     let d = temp("fuzz");
     let path = d.join("fuzz.toml");
