@@ -43,6 +43,7 @@
 
 mod gaits;
 pub mod legs;
+pub mod limit;
 mod pieces;
 mod support;
 
@@ -244,6 +245,8 @@ pub struct Plan {
     crawl_widening: f64,
     /// Projection of the centre of mass along gravity onto the plane: (a, b) = s.xy − s.z g.xy / g.z.
     gravity_local: Vec3,
+    /// Radius of the sphere feet, m.
+    foot_radius: f64,
 }
 
 impl Plan {
@@ -409,6 +412,7 @@ impl Plan {
             crawl_rounds: 0,
             crawl_widening: 0.0,
             gravity_local,
+            foot_radius: radius,
         };
 
         // The starting posture fixes where the centre of mass sits relative to the base.
@@ -934,6 +938,12 @@ impl Plan {
     /// Times of the joint knots.
     pub fn knot_times(&self) -> &[f64] {
         &self.knot_t
+    }
+
+    /// Radius of the sphere feet, m (a foot touches the ground `radius` below its centre along
+    /// the normal).
+    pub fn foot_radius(&self) -> f64 {
+        self.foot_radius
     }
 
     pub fn legs(&self) -> &Legs {
