@@ -95,7 +95,8 @@ fn torque_limits_never_lower_the_need_and_the_worst_instant_is_reported() {
         swing_height: 0.05,
         cycle_period: 3.2,
         body_height: 0.30,
-        margin: 0.02,
+        margin: Some(0.02),
+        shift_accel: None,
     };
     let (p, s) = plan(brindle(), 10.0, &gait, 4.0);
     let l = plan_limit(&p, &s).expect("limit");
@@ -107,4 +108,31 @@ fn torque_limits_never_lower_the_need_and_the_worst_instant_is_reported() {
         (one.mu_required - l.mu_required).abs() <= 1e-4 * l.mu_required,
         "{one:?} vs {l:?}"
     );
+}
+
+#[test]
+#[ignore]
+fn measure() {
+    let acc: f64 = std::env::var("ACC").unwrap().parse().unwrap();
+    let margin: Option<f64> = std::env::var("MARGIN").ok().and_then(|m| m.parse().ok());
+    let sk = std::env::var("SKITTER").is_ok();
+    let gait = if sk {
+        Gait::Crawl { step_length: 0.04, swing_height: 0.03, cycle_period: 3.0, body_height: 0.125, margin, shift_accel: if acc > 0.0 { Some(acc) } else { None } }
+    } else {
+        Gait::Crawl { step_length: 0.06, swing_height: 0.05, cycle_period: 3.2, body_height: 0.30, margin, shift_accel: if acc > 0.0 { Some(acc) } else { None } }
+    };
+    let robot = if sk { skitter() } else { brindle() };
+    for deg in [0.0f64, 10.0, 20.0, 25.0] {
+        let slope = Slope::degrees(deg);
+        let mut d = 4.0;
+        let p = loop {
+            match Plan::build(&robot.model, &robot.facts, &slope, &gait, d) {
+                Ok(p) => break p,
+                Err(e) if e.0.contains("duration") && d < 60.0 => d += 1.0,
+                Err(e) => panic!("{e}"),
+            }
+        };
+        let l = plan_limit(&p, &slope).unwrap();
+        eprintln!("{deg:>4}: margin {:.4} dur {d} cycle {:.2} mu {:.4} (tan {:.4}, ratio {:.3}) at {:.2} share {:.3} tl {:.4}", p.crawl_margin(), p.cycle_time(), l.mu_required, deg.to_radians().tan(), l.mu_required / deg.to_radians().tan(), l.at_s, l.torque_share, l.mu_required_torque_limited);
+    }
 }

@@ -73,7 +73,8 @@ const BRINDLE_CRAWL: Gait = Gait::Crawl {
     swing_height: 0.06,
     cycle_period: 4.0,
     body_height: 0.30,
-    margin: 0.025,
+    margin: Some(0.025),
+    shift_accel: None,
 };
 const BRINDLE_SHIFT: Gait = Gait::WeightShift {
     amplitude: 0.04,
@@ -91,7 +92,8 @@ const SKITTER_CRAWL: Gait = Gait::Crawl {
     swing_height: 0.03,
     cycle_period: 3.0,
     body_height: 0.125,
-    margin: 0.02,
+    margin: Some(0.02),
+    shift_accel: None,
 };
 const SKITTER_TROT: Gait = Gait::Trot {
     step_length: 0.04,
@@ -296,7 +298,8 @@ fn unreachable_targets_get_a_clear_error() {
             swing_height: 0.05,
             cycle_period: 4.0,
             body_height: 0.30,
-            margin: 0.01,
+            margin: Some(0.01),
+            shift_accel: None,
         },
         6.0,
     )
@@ -319,7 +322,8 @@ fn bad_parameters_are_refused_with_the_parameter_named() {
         swing_height: 0.05,
         cycle_period,
         body_height: 0.3,
-        margin,
+        margin: Some(margin),
+        shift_accel: None,
     };
     assert!(build(crawl(0.05, -1.0, 0.01), 8.0).contains("`cycle_period` = -1"));
     assert!(build(crawl(-0.05, 4.0, 0.01), 8.0).contains("`step_length`"));
@@ -689,7 +693,11 @@ fn crawl_keeps_the_full_centre_of_mass_inside_the_stance_polygon() {
         (skitter(), SKITTER_CRAWL, 6.8),
     ];
     for (robot, gait, duration) in cases {
-        let Gait::Crawl { margin, .. } = gait else {
+        let Gait::Crawl {
+            margin: Some(margin),
+            ..
+        } = gait
+        else {
             unreachable!()
         };
         for slope_deg in [0.0, 15.0] {

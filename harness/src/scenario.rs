@@ -67,6 +67,10 @@ pub struct GaitFile {
     pub cycle_period: Option<f64>,
     pub body_height: Option<f64>,
     pub margin: Option<f64>,
+    /// Crawl: `paced` (shifts as long as `shift_accel` needs) or `even` (the even slot grid).
+    pub shifts: Option<String>,
+    /// Crawl, paced shifts: peak base acceleration, m/s².
+    pub shift_accel: Option<f64>,
     pub amplitude: Option<f64>,
     pub period: Option<f64>,
 }
@@ -84,6 +88,8 @@ impl Default for GaitFile {
             cycle_period: None,
             body_height: None,
             margin: None,
+            shifts: None,
+            shift_accel: None,
             amplitude: None,
             period: None,
         }
@@ -344,7 +350,32 @@ impl Scenario {
                 swing_height: positive("gait.swing_height", g.swing_height, 0.05)?,
                 cycle_period: positive("gait.cycle_period", g.cycle_period, 3.2)?,
                 body_height,
-                margin: positive("gait.margin", g.margin, 0.02)?,
+                margin: match g.margin {
+                    Some(m) => Some(positive("gait.margin", Some(m), m)?),
+                    None => None,
+                },
+                shift_accel: match g.shifts.as_deref().unwrap_or("paced") {
+                    "paced" => Some(positive(
+                        "gait.shift_accel",
+                        g.shift_accel,
+                        crate::planner::DEFAULT_SHIFT_ACCEL,
+                    )?),
+                    "even" => {
+                        if g.shift_accel.is_some() {
+                            return Err(fail(
+                                "gait.shift_accel",
+                                "given with shifts = \"even\": allowed only with shifts = \"paced\"".into(),
+                            ));
+                        }
+                        None
+                    }
+                    other => {
+                        return Err(fail(
+                            "gait.shifts",
+                            format!("'{other}': allowed: paced, even"),
+                        ));
+                    }
+                },
             },
             "weight-shift" => Gait::WeightShift {
                 amplitude: positive("gait.amplitude", g.amplitude, 0.03)?,
