@@ -51,7 +51,11 @@ fn standing_still_needs_tan_theta() {
             } else {
                 (l.mu_required - want).abs() <= 1e-3 * want
             };
-            assert!(ok, "{name} standing on {deg}°: μ_required {} vs tan θ {want}", l.mu_required);
+            assert!(
+                ok,
+                "{name} standing on {deg}°: μ_required {} vs tan θ {want}",
+                l.mu_required
+            );
             assert!(
                 l.mu_required_torque_limited >= l.mu_required,
                 "{name} {deg}°: {l:?}"

@@ -212,17 +212,12 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
     text.push_str("The plan's limit (least friction any force distribution needs; share of the torque limits it then takes):\n");
     for &deg in &s.axes.slope_deg {
         let slope = crate::plant::terrain::Slope::degrees(deg);
-        let line = crate::planner::Plan::build(
-            &robot.model,
-            &robot.facts,
-            &slope,
-            &s.gait,
-            s.duration,
-        )
-        .map_err(|e| e.0)
-        .and_then(|plan| {
-            crate::planner::limit::plan_limit(&plan, &slope).map(|l| (plan.cycle_time(), l))
-        });
+        let line =
+            crate::planner::Plan::build(&robot.model, &robot.facts, &slope, &s.gait, s.duration)
+                .map_err(|e| e.0)
+                .and_then(|plan| {
+                    crate::planner::limit::plan_limit(&plan, &slope).map(|l| (plan.cycle_time(), l))
+                });
         text.push_str(&match line {
             Ok((cycle, l)) => format!(
                 "  slope {deg}°: μ_required {} (tan θ {:.3}, at t = {:.2} s), torque share {}, μ_required within the torque limits {}; cycle {cycle:.2} s\n",

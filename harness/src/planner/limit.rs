@@ -110,12 +110,7 @@ pub fn limit_at_times(
     terrain: &dyn Terrain,
     times: &[f64],
 ) -> Result<PlanLimit, String> {
-    let limits: Vec<f64> = plan
-        .model()
-        .joints
-        .iter()
-        .map(|j| j.effort_limit)
-        .collect();
+    let limits: Vec<f64> = plan.model().joints.iter().map(|j| j.effort_limit).collect();
     let mut builder = InstantBuilder::new(plan);
     let settings = solver_settings();
     let mut mu_required = 0.0;
@@ -201,16 +196,8 @@ impl InstantBuilder {
             // J_p = J_lin − [d]× J_ang = J_lin + r [n]× J_ang.
             let rn = skew(&n) * r;
             for col in 0..nv {
-                let lin = Vec3::new(
-                    self.jac[(0, col)],
-                    self.jac[(1, col)],
-                    self.jac[(2, col)],
-                );
-                let ang = Vec3::new(
-                    self.jac[(3, col)],
-                    self.jac[(4, col)],
-                    self.jac[(5, col)],
-                );
+                let lin = Vec3::new(self.jac[(0, col)], self.jac[(1, col)], self.jac[(2, col)]);
+                let ang = Vec3::new(self.jac[(3, col)], self.jac[(4, col)], self.jac[(5, col)]);
                 let jp = lin + rn * ang;
                 // Generalized force of a surface-frame force: J_pᵀ · surface.
                 let row = surface.transpose() * jp;

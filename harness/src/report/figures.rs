@@ -229,16 +229,14 @@ fn outcome_map(study: &Study) -> MapFigure {
                 .map(|(d, m)| {
                     let beyond = run.manifest.beyond_plan_limit(d, m);
                     let mut counts = vec![0; OUTCOME_CLASSES.len()];
-                    for c in run.cells.iter().filter(|c| {
-                        c.controller == *name && c.slope_deg == d && c.mu == m
-                    }) {
+                    for c in run
+                        .cells
+                        .iter()
+                        .filter(|c| c.controller == *name && c.slope_deg == d && c.mu == m)
+                    {
                         counts[outcome_class(c.status.name(), beyond)] += 1;
                     }
-                    MapTile {
-                        x: d,
-                        y: m,
-                        counts,
-                    }
+                    MapTile { x: d, y: m, counts }
                 })
                 .collect();
             MapPanel {

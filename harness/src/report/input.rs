@@ -335,10 +335,9 @@ fn read_plan_limits(path: &Path, v: &serde_json::Value) -> Result<Vec<PlanLimit>
             let num = |name: &str, null: f64| -> Result<f64, String> {
                 match row.get(name) {
                     Some(serde_json::Value::Null) => Ok(null),
-                    Some(x) => x
-                        .as_f64()
-                        .filter(|x| x.is_finite())
-                        .ok_or_else(|| bad(format!("entry {i}: '{name}' must be a number or null"))),
+                    Some(x) => x.as_f64().filter(|x| x.is_finite()).ok_or_else(|| {
+                        bad(format!("entry {i}: '{name}' must be a number or null"))
+                    }),
                     None => Err(bad(format!("entry {i}: missing '{name}'"))),
                 }
             };

@@ -1041,7 +1041,8 @@ impl MapFigure {
                     )))
                     .map_err(&e)?;
             }
-            let limit: Vec<(f64, f64)> = self.limit.iter().copied().filter(|p| inside(*p)).collect();
+            let limit: Vec<(f64, f64)> =
+                self.limit.iter().copied().filter(|p| inside(*p)).collect();
             if limit.len() >= 2 {
                 chart
                     .draw_series(std::iter::once(PathElement::new(
