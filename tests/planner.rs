@@ -76,6 +76,16 @@ const BRINDLE_CRAWL: Gait = Gait::Crawl {
     margin: Some(0.025),
     shift_accel: None,
 };
+/// The default crawl's timing: paced shifts (peak base acceleration ≤ 2 % of g), the margin
+/// derived from the robot.
+const BRINDLE_PACED: Gait = Gait::Crawl {
+    step_length: 0.06,
+    swing_height: 0.05,
+    cycle_period: 3.2,
+    body_height: 0.30,
+    margin: None,
+    shift_accel: Some(0.196),
+};
 const BRINDLE_SHIFT: Gait = Gait::WeightShift {
     amplitude: 0.04,
     period: 2.0,
@@ -119,9 +129,10 @@ fn all_plans() -> &'static Vec<(String, &'static LoadedRobot, f64, Plan)> {
     P.get_or_init(|| {
         let mut out = Vec::new();
         for slope in [0.0, 15.0] {
-            let cases: [(&str, &'static LoadedRobot, Gait, f64); 7] = [
+            let cases: [(&str, &'static LoadedRobot, Gait, f64); 8] = [
                 ("brindle stand", brindle(), Gait::Stand, 2.0),
                 ("brindle crawl", brindle(), BRINDLE_CRAWL, 9.0),
+                ("brindle paced crawl", brindle(), BRINDLE_PACED, 10.0),
                 ("brindle shift", brindle(), BRINDLE_SHIFT, 4.5),
                 ("brindle trot", brindle(), BRINDLE_TROT, 3.1),
                 ("skitter crawl", skitter(), SKITTER_CRAWL, 6.8),
@@ -148,6 +159,48 @@ fn times_between_breakpoints(plan: &Plan, count: usize, guard: f64) -> Vec<f64> 
 
 fn amax(v: &DVector<f64>) -> f64 {
     v.amax()
+}
+
+/// Paced shifts: the base's planned acceleration never exceeds the bound (sampled every
+/// millisecond; the minimum-jerk peak is reached inside a shift), the cycle is longer than the
+/// even grid's, and the derived margin is the documented share of the robot's footprint.
+#[test]
+fn paced_shifts_keep_the_base_acceleration_within_the_bound() {
+    let Gait::Crawl {
+        shift_accel: Some(bound),
+        ..
+    } = BRINDLE_PACED
+    else {
+        unreachable!()
+    };
+    for (label, robot, _, p) in all_plans() {
+        if !label.starts_with("brindle paced crawl") {
+            continue;
+        }
+        assert!(std::ptr::eq(*robot, brindle()));
+        let mut s = p.new_sample();
+        let mut peak = 0.0f64;
+        let n = (p.duration() / 1e-3) as usize;
+        for k in 0..=n {
+            p.sample(k as f64 * 1e-3, &mut s);
+            peak = peak.max(Vec3::new(s.a[0], s.a[1], s.a[2]).norm());
+        }
+        assert!(
+            peak <= bound * (1.0 + 1e-9),
+            "{label}: peak {peak} > {bound}"
+        );
+        // The longest shift does run at the bound (it is not merely slow everywhere).
+        assert!(
+            peak >= 0.9 * bound,
+            "{label}: peak {peak} far below {bound}"
+        );
+        assert!(
+            p.cycle_time() > 3.2 + 0.1,
+            "{label}: cycle {}",
+            p.cycle_time()
+        );
+        assert!(p.crawl_margin() > 0.0 && p.crawl_margin() < 0.1, "{label}");
+    }
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -784,7 +837,9 @@ fn planned_progress_is_whole_cycles_of_steps() {
         );
         assert_eq!(cycles, plan.cycles(), "{label}");
         let expected = if label.contains("crawl") {
-            let Gait::Crawl { step_length, .. } = (if label.starts_with("brindle") {
+            let Gait::Crawl { step_length, .. } = (if label.starts_with("brindle paced") {
+                BRINDLE_PACED
+            } else if label.starts_with("brindle") {
                 BRINDLE_CRAWL
             } else {
                 SKITTER_CRAWL
@@ -815,7 +870,9 @@ fn planned_progress_is_whole_cycles_of_steps() {
             plan.planned_progress()
         );
         if label.contains("crawl") || label.contains("trot") {
-            assert!(cycles >= 2, "{label}: the plan must step");
+            // A paced cycle is long (5–9 s); one is enough to check the bookkeeping.
+            let least = if label.contains("paced") { 1 } else { 2 };
+            assert!(cycles >= least, "{label}: the plan must step");
         }
         // Every foot ends where it started, moved by the progress along the slope.
         for i in 0..n_feet {
