@@ -90,7 +90,8 @@ fn steps(robot: &LoadedRobot) -> Vec<Step> {
         swing_height: 0.05,
         cycle_period: 3.2,
         body_height: 0.30,
-        margin: 0.02,
+        margin: Some(0.02),
+        shift_accel: None,
     };
     let plan = Plan::build(&robot.model, &robot.facts, &slope, &gait, DURATION).expect("plan");
     let mut s = plan.new_sample();

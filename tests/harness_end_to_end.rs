@@ -23,7 +23,8 @@ fn robot_path() -> String {
         .to_string()
 }
 
-/// A small matrix: 2 slopes × 2 μ × 2 laws at 1 kHz, crawl for 3.6 s (one cycle).
+/// A small matrix: 2 slopes × 2 μ × 2 laws at 1 kHz, crawl for 3.6 s (one cycle of the even
+/// grid: the fast timing keeps this test short).
 fn small_scenario(dir: &Path, extra_axes: &str) -> PathBuf {
     let text = format!(
         r#"name = "small"
@@ -32,6 +33,7 @@ duration = 3.6
 [gait]
 kind = "crawl"
 cycle_period = 3.2
+shifts = "even"
 [axes]
 slope_deg = [0.0, 8.0]
 mu = [0.5, 0.9]
@@ -360,6 +362,21 @@ fn malformed_scenarios_are_refused_with_a_clear_message() {
             "unknown gait",
             format!("{good_head}[gait]\nkind = \"gallop\"\n"),
             "gait.kind",
+        ),
+        (
+            "unknown shift timing",
+            format!("{good_head}[gait]\nkind = \"crawl\"\nshifts = \"brisk\"\n"),
+            "gait.shifts",
+        ),
+        (
+            "negative shift acceleration",
+            format!("{good_head}[gait]\nkind = \"crawl\"\nshift_accel = -0.2\n"),
+            "gait.shift_accel",
+        ),
+        (
+            "shift acceleration with the even grid",
+            format!("{good_head}[gait]\nkind = \"crawl\"\nshifts = \"even\"\nshift_accel = 0.2\n"),
+            "gait.shift_accel",
         ),
         (
             "duration shorter than a cycle",

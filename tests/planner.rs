@@ -73,7 +73,18 @@ const BRINDLE_CRAWL: Gait = Gait::Crawl {
     swing_height: 0.06,
     cycle_period: 4.0,
     body_height: 0.30,
-    margin: 0.025,
+    margin: Some(0.025),
+    shift_accel: None,
+};
+/// The default crawl's timing: paced shifts (peak base acceleration ≤ 2 % of g), the margin
+/// derived from the robot.
+const BRINDLE_PACED: Gait = Gait::Crawl {
+    step_length: 0.06,
+    swing_height: 0.05,
+    cycle_period: 3.2,
+    body_height: 0.30,
+    margin: None,
+    shift_accel: Some(0.196),
 };
 const BRINDLE_SHIFT: Gait = Gait::WeightShift {
     amplitude: 0.04,
@@ -91,7 +102,8 @@ const SKITTER_CRAWL: Gait = Gait::Crawl {
     swing_height: 0.03,
     cycle_period: 3.0,
     body_height: 0.125,
-    margin: 0.02,
+    margin: Some(0.02),
+    shift_accel: None,
 };
 const SKITTER_TROT: Gait = Gait::Trot {
     step_length: 0.04,
@@ -117,9 +129,10 @@ fn all_plans() -> &'static Vec<(String, &'static LoadedRobot, f64, Plan)> {
     P.get_or_init(|| {
         let mut out = Vec::new();
         for slope in [0.0, 15.0] {
-            let cases: [(&str, &'static LoadedRobot, Gait, f64); 7] = [
+            let cases: [(&str, &'static LoadedRobot, Gait, f64); 8] = [
                 ("brindle stand", brindle(), Gait::Stand, 2.0),
                 ("brindle crawl", brindle(), BRINDLE_CRAWL, 9.0),
+                ("brindle paced crawl", brindle(), BRINDLE_PACED, 10.0),
                 ("brindle shift", brindle(), BRINDLE_SHIFT, 4.5),
                 ("brindle trot", brindle(), BRINDLE_TROT, 3.1),
                 ("skitter crawl", skitter(), SKITTER_CRAWL, 6.8),
@@ -146,6 +159,48 @@ fn times_between_breakpoints(plan: &Plan, count: usize, guard: f64) -> Vec<f64> 
 
 fn amax(v: &DVector<f64>) -> f64 {
     v.amax()
+}
+
+/// Paced shifts: the base's planned acceleration never exceeds the bound (sampled every
+/// millisecond; the minimum-jerk peak is reached inside a shift), the cycle is longer than the
+/// even grid's, and the derived margin is the documented share of the robot's footprint.
+#[test]
+fn paced_shifts_keep_the_base_acceleration_within_the_bound() {
+    let Gait::Crawl {
+        shift_accel: Some(bound),
+        ..
+    } = BRINDLE_PACED
+    else {
+        unreachable!()
+    };
+    for (label, robot, _, p) in all_plans() {
+        if !label.starts_with("brindle paced crawl") {
+            continue;
+        }
+        assert!(std::ptr::eq(*robot, brindle()));
+        let mut s = p.new_sample();
+        let mut peak = 0.0f64;
+        let n = (p.duration() / 1e-3) as usize;
+        for k in 0..=n {
+            p.sample(k as f64 * 1e-3, &mut s);
+            peak = peak.max(Vec3::new(s.a[0], s.a[1], s.a[2]).norm());
+        }
+        assert!(
+            peak <= bound * (1.0 + 1e-9),
+            "{label}: peak {peak} > {bound}"
+        );
+        // The longest shift does run at the bound (it is not merely slow everywhere).
+        assert!(
+            peak >= 0.9 * bound,
+            "{label}: peak {peak} far below {bound}"
+        );
+        assert!(
+            p.cycle_time() > 3.2 + 0.1,
+            "{label}: cycle {}",
+            p.cycle_time()
+        );
+        assert!(p.crawl_margin() > 0.0 && p.crawl_margin() < 0.1, "{label}");
+    }
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -296,7 +351,8 @@ fn unreachable_targets_get_a_clear_error() {
             swing_height: 0.05,
             cycle_period: 4.0,
             body_height: 0.30,
-            margin: 0.01,
+            margin: Some(0.01),
+            shift_accel: None,
         },
         6.0,
     )
@@ -319,7 +375,8 @@ fn bad_parameters_are_refused_with_the_parameter_named() {
         swing_height: 0.05,
         cycle_period,
         body_height: 0.3,
-        margin,
+        margin: Some(margin),
+        shift_accel: None,
     };
     assert!(build(crawl(0.05, -1.0, 0.01), 8.0).contains("`cycle_period` = -1"));
     assert!(build(crawl(-0.05, 4.0, 0.01), 8.0).contains("`step_length`"));
@@ -689,7 +746,11 @@ fn crawl_keeps_the_full_centre_of_mass_inside_the_stance_polygon() {
         (skitter(), SKITTER_CRAWL, 6.8),
     ];
     for (robot, gait, duration) in cases {
-        let Gait::Crawl { margin, .. } = gait else {
+        let Gait::Crawl {
+            margin: Some(margin),
+            ..
+        } = gait
+        else {
             unreachable!()
         };
         for slope_deg in [0.0, 15.0] {
@@ -776,7 +837,9 @@ fn planned_progress_is_whole_cycles_of_steps() {
         );
         assert_eq!(cycles, plan.cycles(), "{label}");
         let expected = if label.contains("crawl") {
-            let Gait::Crawl { step_length, .. } = (if label.starts_with("brindle") {
+            let Gait::Crawl { step_length, .. } = (if label.starts_with("brindle paced") {
+                BRINDLE_PACED
+            } else if label.starts_with("brindle") {
                 BRINDLE_CRAWL
             } else {
                 SKITTER_CRAWL
@@ -807,7 +870,9 @@ fn planned_progress_is_whole_cycles_of_steps() {
             plan.planned_progress()
         );
         if label.contains("crawl") || label.contains("trot") {
-            assert!(cycles >= 2, "{label}: the plan must step");
+            // A paced cycle is long (5–9 s); one is enough to check the bookkeeping.
+            let least = if label.contains("paced") { 1 } else { 2 };
+            assert!(cycles >= least, "{label}: the plan must step");
         }
         // Every foot ends where it started, moved by the progress along the slope.
         for i in 0..n_feet {

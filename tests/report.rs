@@ -837,3 +837,76 @@ fn report_line_breaks_where_no_run_held() {
     // id-grip (second colour): legend key and one line through all three μ.
     assert_eq!(count("#C4573A"), 2);
 }
+
+/// The plan's limit from the manifest: which conditions are beyond it, the outcome class of
+/// each run, the outcome map drawn with every class's colour, and the limit table.
+#[test]
+fn report_outcome_map_and_plan_limit() {
+    use gripsweep::report::{OUTCOME_CLASSES, outcome_class, read_manifest};
+    let run = RunDir::new("limit");
+    let mut cells = Vec::new();
+    // (slope, μ, controller, status): 10° needs μ ≥ 0.25 here; 20° cannot be planned at all.
+    let rows = [
+        (10.0, 0.2, "stiff-pd", "ok"),
+        (10.0, 0.2, "id-grip", "fell"),
+        (10.0, 0.6, "stiff-pd", "infeasible"),
+        (10.0, 0.6, "id-grip", "ok"),
+        (20.0, 0.6, "stiff-pd", "ok"),
+        (20.0, 0.6, "id-grip", "error"),
+        (10.0, 0.2, "stiff-pd", "ok"),
+        (10.0, 0.6, "id-grip", "ok"),
+    ];
+    for (i, (slope, mu, controller, status)) in rows.into_iter().enumerate() {
+        cells.push(C {
+            slope,
+            mu,
+            rate: 1000.0,
+            actuator: "ideal",
+            controller,
+            seed: (i / 6) as u64,
+            status,
+            message: "",
+            slip: 1.0 + i as f64,
+            track: 5.0,
+        });
+    }
+    run.write("cells.csv", &cells_csv(&cells));
+    run.write(
+        "manifest.json",
+        "{\"scenario_name\": \"limits\", \"slip_floor_mm\": 0.1, \"tool_version\": \"0.1.0\", \"plan_limits\": [\
+         {\"slope_deg\": 10.0, \"mu_required\": 0.25, \"at_s\": 1.5, \"torque_share\": 0.5, \"mu_required_torque_limited\": 0.25},\
+         {\"slope_deg\": 20.0, \"mu_required\": null, \"at_s\": 0.3, \"torque_share\": null, \"mu_required_torque_limited\": null}]}",
+    );
+    let m = read_manifest(&run.path().join("manifest.json")).expect("manifest");
+    assert!(m.beyond_plan_limit(10.0, 0.2));
+    assert!(!m.beyond_plan_limit(10.0, 0.25) && !m.beyond_plan_limit(10.0, 0.6));
+    assert!(m.beyond_plan_limit(20.0, 0.6) && m.beyond_plan_limit(20.0, 100.0));
+    // A slope the manifest does not know is never called beyond.
+    assert!(!m.beyond_plan_limit(30.0, 0.1));
+    // Classes: falls first, then the limit, then what the run did; unknown statuses do not
+    // count as held.
+    let class = |s, b| OUTCOME_CLASSES[outcome_class(s, b)];
+    assert_eq!(class("ok", false), "held and controlled");
+    assert_eq!(class("ok", true), "beyond the plan's limit");
+    assert_eq!(class("fell", true), "fell or diverged");
+    assert_eq!(class("diverged", false), "fell or diverged");
+    assert_eq!(class("infeasible", false), "did not control");
+    assert_eq!(class("some-new-status", false), "did not control");
+    assert_eq!(class("error", false), "not set up");
+
+    let summary = write_report(run.path()).expect("report");
+    check_outputs(&run, &summary, &["outcome_map"]);
+    let svg = run.read("plots/outcome_map.svg").to_uppercase();
+    // Every class present in the data is drawn in its colour: held (moss), did not control
+    // (ochre), beyond the limit (plum), fell (terracotta), not set up (stone); the legend
+    // adds one swatch per class, so each colour appears at least twice.
+    for colour in ["#5A8A3C", "#D9A02B", "#9A7698", "#C4573A", "#A8A296"] {
+        let n = svg.matches(&format!("FILL=\"{colour}\"")).count();
+        assert!(n >= 2, "{colour} drawn {n} times");
+    }
+    let md = run.read("summary.md");
+    let row = md_row(&md, "## The plan's own limit", "10°");
+    assert!(row.contains("0.250") && row.contains("| 0.2 |"), "{row}");
+    let row = md_row(&md, "## The plan's own limit", "20°");
+    assert!(row.contains("∞") && row.contains("0.2, 0.6"), "{row}");
+}

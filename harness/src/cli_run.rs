@@ -216,6 +216,29 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
         s.seeds,
         s.duration
     );
+    // The plan's own limit per slope (planner/limit.rs): the friction and torque share any
+    // law needs at least.
+    text.push_str("The plan's limit (least friction any force distribution needs; share of the torque limits it then takes):\n");
+    for &deg in &s.axes.slope_deg {
+        let slope = crate::plant::terrain::Slope::degrees(deg);
+        let line =
+            crate::planner::Plan::build(&robot.model, &robot.facts, &slope, &s.gait, s.duration)
+                .map_err(|e| e.0)
+                .and_then(|plan| {
+                    crate::planner::limit::plan_limit(&plan, &slope).map(|l| (plan.cycle_time(), l))
+                });
+        text.push_str(&match line {
+            Ok((cycle, l)) => format!(
+                "  slope {deg}°: μ_required {} (tan θ {:.3}, at t = {:.2} s), torque share {}, μ_required within the torque limits {}; cycle {cycle:.2} s\n",
+                fmt_mu(l.mu_required),
+                deg.to_radians().tan(),
+                l.at_s,
+                fmt_mu(l.torque_share),
+                fmt_mu(l.mu_required_torque_limited),
+            ),
+            Err(e) => format!("  slope {deg}°: limit not computed: {e}\n"),
+        });
+    }
     text.push_str(&format!("Estimated run time on {threads} thread(s): {:.0} s ({:.1} min), from a {probe} s probe per controller:\n", total_s, total_s / 60.0));
     for (c, w) in per_controller {
         text.push_str(&format!(
@@ -224,6 +247,17 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
         ));
     }
     Ok(text)
+}
+
+/// A friction coefficient or share for `check`: three decimals, "none suffices" when infinite.
+fn fmt_mu(x: f64) -> String {
+    if x.is_finite() {
+        format!("{x:.3}")
+    } else if x.is_nan() {
+        "undefined".into()
+    } else {
+        "∞ (no friction suffices: the plan tips the robot)".into()
+    }
 }
 
 /// The cell of the scenario matching `picks` (AXIS=VALUE); unspecified axes: first value.

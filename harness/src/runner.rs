@@ -357,6 +357,35 @@ fn manifest(
     })
 }
 
+/// The plan's friction limit on each slope (planner/limit.rs), for the manifest's
+/// `plan_limits`: one object per slope with `slope_deg`, `mu_required` (null when no friction
+/// is enough), `at_s`, `torque_share` (null when undefined) and `mu_required_torque_limited`
+/// (null when no friction is enough). A slope whose plan or limit fails is left out.
+pub fn plan_limits_json(plans: &[(f64, crate::planner::Plan)]) -> Value {
+    let finite = |x: f64| if x.is_finite() { json!(x) } else { Value::Null };
+    let rows: Vec<Value> = plans
+        .par_iter()
+        .map(|(deg, plan)| {
+            let slope = crate::plant::terrain::Slope::degrees(*deg);
+            crate::planner::limit::plan_limit(plan, &slope)
+                .ok()
+                .map(|l| {
+                    json!({
+                        "slope_deg": deg,
+                        "mu_required": finite(l.mu_required),
+                        "at_s": l.at_s,
+                        "torque_share": finite(l.torque_share),
+                        "mu_required_torque_limited": finite(l.mu_required_torque_limited),
+                    })
+                })
+        })
+        .collect::<Vec<_>>()
+        .into_iter()
+        .flatten()
+        .collect();
+    json!(rows)
+}
+
 fn write_manifest(dir: &Path, m: &Value) -> Result<(), String> {
     // Written to a temporary file and renamed, so a kill never leaves a torn manifest.
     let p = dir.join(MANIFEST_FILE);
@@ -583,6 +612,8 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         })
         .collect();
     let plan_for = |deg: f64| plans.iter().find(|(d, _)| *d == deg).map(|(_, p)| p);
+    man["plan_limits"] = plan_limits_json(&plans);
+    write_manifest(out, &man).map_err(RunError::other)?;
     parallel_units(
         threads,
         &todo,

@@ -76,6 +76,10 @@ pub struct GaitFile {
     pub cycle_period: Option<f64>,
     pub body_height: Option<f64>,
     pub margin: Option<f64>,
+    /// Crawl: `paced` (shifts as long as `shift_accel` needs) or `even` (the even slot grid).
+    pub shifts: Option<String>,
+    /// Crawl, paced shifts: peak base acceleration, m/s².
+    pub shift_accel: Option<f64>,
     pub amplitude: Option<f64>,
     pub period: Option<f64>,
 }
@@ -93,6 +97,8 @@ impl Default for GaitFile {
             cycle_period: None,
             body_height: None,
             margin: None,
+            shifts: None,
+            shift_accel: None,
             amplitude: None,
             period: None,
         }
@@ -372,7 +378,32 @@ impl Scenario {
                 swing_height: positive_gait("gait.swing_height", g.swing_height, 0.05)?,
                 cycle_period: positive_gait("gait.cycle_period", g.cycle_period, 3.2)?,
                 body_height,
-                margin: positive_gait("gait.margin", g.margin, 0.02)?,
+                margin: match g.margin {
+                    Some(m) => Some(positive_gait("gait.margin", Some(m), m)?),
+                    None => None,
+                },
+                shift_accel: match g.shifts.as_deref().unwrap_or("paced") {
+                    "paced" => Some(positive_gait(
+                        "gait.shift_accel",
+                        g.shift_accel,
+                        crate::planner::DEFAULT_SHIFT_ACCEL,
+                    )?),
+                    "even" => {
+                        if g.shift_accel.is_some() {
+                            return Err(fail(
+                                "gait.shift_accel",
+                                "given with shifts = \"even\": allowed only with shifts = \"paced\"".into(),
+                            ));
+                        }
+                        None
+                    }
+                    other => {
+                        return Err(fail(
+                            "gait.shifts",
+                            format!("'{other}': allowed: paced, even"),
+                        ));
+                    }
+                },
             },
             "weight-shift" => Gait::WeightShift {
                 amplitude: positive_gait("gait.amplitude", g.amplitude, 0.03)?,

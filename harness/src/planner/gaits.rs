@@ -103,6 +103,8 @@ pub(crate) struct Schedule {
     pub swings: Vec<CrawlSwing>,
     /// Number of whole gait cycles (0 for standing and weight shifting).
     pub cycles: usize,
+    /// Length of the first whole cycle, s (crawl; 0 for the others).
+    pub first_cycle: f64,
 }
 
 /// A path assembled piece by piece, holding still between moves.
@@ -154,6 +156,7 @@ pub(crate) fn stand(s: &Setup) -> Schedule {
         phases: vec![(0.0, s.all_feet())],
         swings: Vec::new(),
         cycles: 0,
+        first_cycle: 0.0,
     }
 }
 
@@ -207,6 +210,7 @@ pub(crate) fn weight_shift(s: &Setup, amplitude: f64, period: f64) -> Result<Sch
         phases: vec![(0.0, s.all_feet())],
         swings: Vec::new(),
         cycles: 0,
+        first_cycle: 0.0,
     })
 }
 
@@ -216,6 +220,17 @@ pub(crate) struct CrawlParams {
     pub swing_height: f64,
     pub cycle_period: f64,
     pub margin: f64,
+    /// Peak base acceleration of a shift, m/s² (`None`: every shift takes the even share of
+    /// its slot, whatever its length).
+    pub shift_accel: Option<f64>,
+}
+
+/// Peak acceleration of a minimum-jerk move of length d in time T is (10/√3) d/T² (the
+/// quintic's second derivative peaks at s = 1/2 ∓ √3/6; Flash & Hogan, "The coordination of
+/// arm movements", J. Neuroscience 1985), so the shortest move within a bound a takes
+/// T = √((10/√3) d / a).
+pub(crate) fn min_jerk_time(distance: f64, accel: f64) -> f64 {
+    (10.0 / 3f64.sqrt() * distance / accel).sqrt()
 }
 
 /// Static crawl: per slot, shift the base (all feet down) so that the projected centre of mass
@@ -224,20 +239,20 @@ pub(crate) struct CrawlParams {
 /// current footholds; it moves the least distance that meets the margin. `extra[k][e]` widens
 /// the margin of edge e during swing k (the correction for the real, moving centre of mass,
 /// found by the plan). After the last whole cycle the base returns to the centre of its feet.
+///
+/// Timing: a slot is cycle_period / feet; a swing takes (1 − [`CRAWL_SHIFT_FRACTION`]) of it.
+/// Without `shift_accel` a shift takes the rest of the slot (even timing); with it, a shift
+/// takes at least that and as long as its length needs for its peak acceleration to stay
+/// within the bound ([`min_jerk_time`]), so the cycle lengthens with the shifts.
 pub(crate) fn crawl(s: &Setup, p: &CrawlParams, extra: &[Vec<f64>]) -> Result<Schedule, PlanError> {
     let n = s.footprint.len();
     let slot = p.cycle_period / n as f64;
-    let shift = CRAWL_SHIFT_FRACTION * slot;
-    let cycles = ((s.duration - shift) / p.cycle_period).floor();
-    if cycles < 1.0 {
-        return Err(PlanError(format!(
-            "Crawl: duration {} s is shorter than one cycle ({} s) and the final shift ({shift:.3} s); allowed: a duration ≥ {:.3} s",
-            s.duration,
-            p.cycle_period,
-            p.cycle_period + shift
-        )));
-    }
-    let cycles = cycles as usize;
+    let even_shift = CRAWL_SHIFT_FRACTION * slot;
+    let swing_time = slot - even_shift;
+    let shift_time = |from: &P2, to: &P2| match p.shift_accel {
+        None => even_shift,
+        Some(a) => even_shift.max(min_jerk_time((to - from).norm(), a)),
+    };
     let home = Setup::centroid(&s.footprint);
     let step = P2::new(p.step_length, 0.0);
     let mut holds = s.footprint.clone();
@@ -246,13 +261,20 @@ pub(crate) fn crawl(s: &Setup, p: &CrawlParams, extra: &[Vec<f64>]) -> Result<Sc
     let mut feet: Vec<Track> = holds.iter().map(|f| Track::new(s.foot_at(f))).collect();
     let mut phases = Vec::new();
     let mut swings = Vec::new();
-    for k in 0..cycles {
+    let mut t = 0.0;
+    let mut cycles = 0;
+    let mut first_cycle = 0.0;
+    loop {
+        // Lay out one more cycle; keep it only if it and the final shift fit the duration.
+        let k = cycles;
+        let (mut c_holds, mut c_base_ab, mut c_t) = (holds.clone(), base_ab, t);
+        let mut c_base: Vec<Piece> = Vec::new();
+        let mut c_feet: Vec<(usize, Piece)> = Vec::new();
+        let mut c_phases = Vec::new();
+        let mut c_swings = Vec::new();
         for (j, &f) in s.crawl_order.iter().enumerate() {
-            let t_shift = k as f64 * p.cycle_period + j as f64 * slot;
-            let t_lift = t_shift + shift;
-            let t_down = t_shift + slot;
             let stance: Vec<usize> = (0..n).filter(|&i| i != f).collect();
-            let points: Vec<P2> = stance.iter().map(|&i| holds[i]).collect();
+            let points: Vec<P2> = stance.iter().map(|&i| c_holds[i]).collect();
             let names = || {
                 stance
                     .iter()
@@ -262,12 +284,12 @@ pub(crate) fn crawl(s: &Setup, p: &CrawlParams, extra: &[Vec<f64>]) -> Result<Sc
             };
             let support = SupportPolygon::hull(&points).ok_or_else(|| {
                 PlanError(format!(
-                    "Crawl: while foot '{}' swings (t = {t_lift:.3} s) the stance feet {} lie on one line: no support polygon",
+                    "Crawl: while foot '{}' swings (t = {c_t:.3} s) the stance feet {} lie on one line: no support polygon",
                     s.foot_names[f],
                     names()
                 ))
             })?;
-            let index = swings.len();
+            let index = swings.len() + c_swings.len();
             let widen = |e: usize| {
                 extra
                     .get(index)
@@ -279,12 +301,12 @@ pub(crate) fn crawl(s: &Setup, p: &CrawlParams, extra: &[Vec<f64>]) -> Result<Sc
                 .map(|e| p.margin + widen(e))
                 .collect();
             let room = support.inset(&inset);
-            let wish = Setup::centroid(&holds) - home + s.com_offset;
+            let wish = Setup::centroid(&c_holds) - home + s.com_offset;
             let Some(target) = closest_point(&room, &wish) else {
                 let extra_edges: Vec<f64> = (0..support.edges.len()).map(widen).collect();
                 let best = support.largest_margin(&extra_edges);
                 return Err(PlanError(format!(
-                    "Crawl: margin = {} m cannot be met while foot '{}' swings (t = {t_lift:.3}–{t_down:.3} s): the support polygon of {} leaves room for a margin of at most {:.4} m{}; allowed: a smaller margin (or a shorter step_length)",
+                    "Crawl: margin = {} m cannot be met while foot '{}' swings (from t = {c_t:.3} s): the support polygon of {} leaves room for a margin of at most {:.4} m{}; allowed: a smaller margin (or a shorter step_length)",
                     p.margin,
                     s.foot_names[f],
                     names(),
@@ -297,41 +319,87 @@ pub(crate) fn crawl(s: &Setup, p: &CrawlParams, extra: &[Vec<f64>]) -> Result<Sc
                 )));
             };
             let next_base = target - s.com_offset;
-            base.push(Piece::min_jerk(
+            // Even timing keeps the slot grid exactly (k × period + j × slot).
+            let t_shift = if p.shift_accel.is_none() {
+                k as f64 * p.cycle_period + j as f64 * slot
+            } else {
+                c_t
+            };
+            let t_lift = t_shift + shift_time(&c_base_ab, &next_base);
+            let t_down = if p.shift_accel.is_none() {
+                t_shift + slot
+            } else {
+                t_lift + swing_time
+            };
+            c_base.push(Piece::min_jerk(
                 t_shift,
                 t_lift,
-                s.base_at(&base_ab),
+                s.base_at(&c_base_ab),
                 s.base_at(&next_base),
             ));
-            base_ab = next_base;
-            let landing = holds[f] + step;
-            feet[f].push(Piece::swing(
-                t_lift,
-                t_down,
-                s.foot_at(&holds[f]),
-                s.foot_at(&landing),
-                s.lift_between(&holds[f], &landing),
-                p.swing_height,
+            c_base_ab = next_base;
+            let landing = c_holds[f] + step;
+            c_feet.push((
+                f,
+                Piece::swing(
+                    t_lift,
+                    t_down,
+                    s.foot_at(&c_holds[f]),
+                    s.foot_at(&landing),
+                    s.lift_between(&c_holds[f], &landing),
+                    p.swing_height,
+                ),
             ));
-            holds[f] = landing;
-            phases.push((t_shift, s.all_feet()));
+            c_holds[f] = landing;
+            c_phases.push((t_shift, s.all_feet()));
             let mut flags = s.all_feet();
             flags[f] = false;
-            phases.push((t_lift, flags));
-            swings.push(CrawlSwing {
+            c_phases.push((t_lift, flags));
+            c_swings.push(CrawlSwing {
                 t0: t_lift,
                 t1: t_down,
                 support,
                 target,
             });
+            c_t = t_down;
         }
+        let final_ab = P2::new((k + 1) as f64 * p.step_length, 0.0);
+        let end = c_t + shift_time(&c_base_ab, &final_ab);
+        if end > s.duration + 1e-9 {
+            if cycles == 0 {
+                return Err(PlanError(format!(
+                    "Crawl: duration {} s is shorter than one cycle and the final shift ({end:.3} s with this timing); allowed: a duration ≥ {end:.3} s",
+                    s.duration
+                )));
+            }
+            break;
+        }
+        for piece in c_base {
+            base.push(piece);
+        }
+        for (f, piece) in c_feet {
+            feet[f].push(piece);
+        }
+        phases.extend(c_phases);
+        swings.extend(c_swings);
+        holds = c_holds;
+        base_ab = c_base_ab;
+        t = c_t;
+        if cycles == 0 {
+            first_cycle = t;
+        }
+        cycles += 1;
     }
     // Back to the centre of the feet: the same stance as at the start, cycles × step further.
-    let t_end = cycles as f64 * p.cycle_period;
+    let t_end = if p.shift_accel.is_none() {
+        cycles as f64 * p.cycle_period
+    } else {
+        t
+    };
     let final_ab = P2::new(cycles as f64 * p.step_length, 0.0);
     base.push(Piece::min_jerk(
         t_end,
-        t_end + shift,
+        t_end + shift_time(&base_ab, &final_ab),
         s.base_at(&base_ab),
         s.base_at(&final_ab),
     ));
@@ -342,6 +410,7 @@ pub(crate) fn crawl(s: &Setup, p: &CrawlParams, extra: &[Vec<f64>]) -> Result<Sc
         phases,
         swings,
         cycles,
+        first_cycle,
     })
 }
 
@@ -433,5 +502,6 @@ pub(crate) fn trot(s: &Setup, p: &TrotParams) -> Result<Schedule, PlanError> {
         phases,
         swings: Vec::new(),
         cycles,
+        first_cycle: period,
     })
 }

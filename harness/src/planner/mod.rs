@@ -43,6 +43,7 @@
 
 mod gaits;
 pub mod legs;
+pub mod limit;
 mod pieces;
 mod support;
 
@@ -62,6 +63,10 @@ use pieces::{Piece, piece_at, quintic_hermite};
 use std::fmt;
 use support::P2;
 
+/// Default peak base acceleration of the crawl's paced shifts, m/s²: 2 % of standard gravity
+/// (see the README, "The planner": the horizontal force a base acceleration a needs adds about
+/// a / (g cos θ) to the friction the plan needs, here ≤ 0.02 / cos θ).
+pub const DEFAULT_SHIFT_ACCEL: f64 = 0.02 * 9.806_65;
 /// Largest time between joint knots, s.
 pub const KNOT_SPACING: f64 = 1e-3;
 /// Longest plan, s.
@@ -100,13 +105,18 @@ pub enum Gait {
     Stand,
     /// Static crawl up the slope: one swing foot at a time; before each swing the base shifts
     /// so the centre of mass (projected along gravity onto the ground) lies inside the polygon
-    /// of the stance feet with `margin` (m) to every edge.
+    /// of the stance feet with `margin` (m) to every edge. `cycle_period` sets the even slot
+    /// grid (cycle / feet per foot, half shift, half swing); with `shift_accel` (m/s²) a shift
+    /// lasts as long as its length needs for a peak base acceleration within it (never less
+    /// than its even share), so the cycle lengthens; `None` keeps the even grid (the faster,
+    /// dynamic plan).
     Crawl {
         step_length: f64,
         swing_height: f64,
         cycle_period: f64,
         body_height: f64,
-        margin: f64,
+        margin: Option<f64>,
+        shift_accel: Option<f64>,
     },
     /// Weight shifting in place: all feet in stance; the base moves by `amplitude` towards each
     /// foot in turn (rest to rest), one round per `period`.
@@ -155,12 +165,19 @@ impl Gait {
                 cycle_period,
                 body_height,
                 margin,
+                shift_accel,
             } => {
                 check("step_length", step_length, step_length >= 0.0, "≥ 0 m")?;
                 check("swing_height", swing_height, swing_height > 0.0, "> 0 m")?;
                 check("cycle_period", cycle_period, cycle_period > 0.0, "> 0 s")?;
                 check("body_height", body_height, body_height > 0.0, "> 0 m")?;
-                check("margin", margin, margin >= 0.0, "≥ 0 m")
+                if let Some(a) = shift_accel {
+                    check("shift_accel", a, a > 0.0, "> 0 m/s²")?;
+                }
+                match margin {
+                    Some(m) => check("margin", m, m >= 0.0, "≥ 0 m"),
+                    None => Ok(()),
+                }
             }
             Gait::WeightShift {
                 amplitude,
@@ -244,6 +261,12 @@ pub struct Plan {
     crawl_widening: f64,
     /// Projection of the centre of mass along gravity onto the plane: (a, b) = s.xy − s.z g.xy / g.z.
     gravity_local: Vec3,
+    /// Radius of the sphere feet, m.
+    foot_radius: f64,
+    /// Length of the first whole gait cycle, s (crawl and trot; 0 otherwise).
+    first_cycle: f64,
+    /// Crawl only: the centre-of-mass margin used (given, or derived from the robot), m.
+    crawl_margin: f64,
 }
 
 impl Plan {
@@ -409,6 +432,9 @@ impl Plan {
             crawl_rounds: 0,
             crawl_widening: 0.0,
             gravity_local,
+            foot_radius: radius,
+            first_cycle: 0.0,
+            crawl_margin: 0.0,
         };
 
         // The starting posture fixes where the centre of mass sits relative to the base.
@@ -451,13 +477,20 @@ impl Plan {
                 swing_height,
                 cycle_period,
                 margin,
+                shift_accel,
                 ..
             } => {
+                let margin = match margin {
+                    Some(m) => m,
+                    None => derived_margin(&setup)?,
+                };
+                plan.crawl_margin = margin;
                 let params = CrawlParams {
                     step_length,
                     swing_height,
                     cycle_period,
                     margin,
+                    shift_accel,
                 };
                 plan.crawl_with_real_com(&setup, &params, &mut scratch)?;
             }
@@ -561,6 +594,7 @@ impl Plan {
         self.phase_starts = s.phases.iter().map(|p| p.0).collect();
         self.phase_stance = s.phases.into_iter().map(|p| p.1).collect();
         self.cycles = s.cycles;
+        self.first_cycle = s.first_cycle;
         let mut b: Vec<f64> = vec![0.0, self.duration];
         for p in self.base.iter().chain(self.feet.iter().flatten()) {
             b.push(p.t0);
@@ -914,6 +948,18 @@ impl Plan {
         self.cycles
     }
 
+    /// Length of the first whole gait cycle, s (the crawl's with its paced shifts; the trot's
+    /// cycle_period; 0 for standing and weight shifting).
+    pub fn cycle_time(&self) -> f64 {
+        self.first_cycle
+    }
+
+    /// Crawl only: the centre-of-mass margin the plan keeps (the gait's, or the one derived
+    /// from the robot's footprint when the gait leaves it open), m.
+    pub fn crawl_margin(&self) -> f64 {
+        self.crawl_margin
+    }
+
     /// Crawl only: how many rounds the centre-of-mass correction took (1: the approximation
     /// already kept the margin) and the largest widening of a support edge it applied, m.
     pub fn crawl_correction(&self) -> (usize, f64) {
@@ -936,6 +982,12 @@ impl Plan {
         &self.knot_t
     }
 
+    /// Radius of the sphere feet, m (a foot touches the ground `radius` below its centre along
+    /// the normal).
+    pub fn foot_radius(&self) -> f64 {
+        self.foot_radius
+    }
+
     pub fn legs(&self) -> &Legs {
         &self.legs
     }
@@ -949,6 +1001,35 @@ impl Plan {
     pub fn ground_frame(&self) -> Pose {
         Pose::new(self.ground.rot, self.ground.origin)
     }
+}
+
+/// Share of the smallest inscribed radius of the crawl's swing-support polygons (nominal
+/// footprint, one foot lifted) that the crawl keeps as its centre-of-mass margin when the gait
+/// does not set one.
+pub const CRAWL_MARGIN_SHARE: f64 = 0.25;
+
+/// The crawl's default margin, from the robot: [`CRAWL_MARGIN_SHARE`] × the largest margin the
+/// tightest swing-support polygon of the nominal footprint allows (its inscribed radius for a
+/// triangle). A quarter leaves the centre of mass room to move between polygons without long
+/// shifts, and scales with the robot's size; the plan's friction need hardly depends on it
+/// (README, "The planner"), a law that does not spread its forces well does.
+fn derived_margin(setup: &Setup) -> Result<f64, PlanError> {
+    let n = setup.footprint.len();
+    let mut tightest = f64::INFINITY;
+    for f in 0..n {
+        let points: Vec<P2> = (0..n)
+            .filter(|&i| i != f)
+            .map(|i| setup.footprint[i])
+            .collect();
+        let poly = support::SupportPolygon::hull(&points).ok_or_else(|| {
+            PlanError(format!(
+                "Crawl: with foot '{}' lifted the other feet lie on one line: no support polygon",
+                setup.foot_names[f]
+            ))
+        })?;
+        tightest = tightest.min(poly.largest_margin(&vec![0.0; poly.edges.len()]));
+    }
+    Ok(CRAWL_MARGIN_SHARE * tightest.max(0.0))
 }
 
 /// The crawl order (one foot at a time: right side hind to fore, then left side hind to fore;

@@ -233,7 +233,8 @@ fn crawl_corrects_the_centre_of_mass_approximation() {
         swing_height: 0.06,
         cycle_period: 4.0,
         body_height: 0.30,
-        margin: 0.03,
+        margin: Some(0.03),
+        shift_accel: None,
     };
     for slope in [0.0, 15.0] {
         let plan = Plan::build(&r.model, &r.facts, &Slope::degrees(slope), &gait, 5.0).unwrap();

@@ -3,7 +3,9 @@
 
 use super::Computed;
 use super::look;
-use super::plots::{Bar, BarFigure, Figure, LineFigure, LinePanel, Pt, Scale};
+use super::plots::{
+    Bar, BarFigure, Figure, LineFigure, LinePanel, MapFigure, MapPanel, MapTile, Pt, Scale,
+};
 use super::tables::{Axis, Pivot, Study};
 
 /// The figures to draw and the ones left out.
@@ -20,6 +22,33 @@ pub const TRACKING_STEM: &str = "tracking_vs_friction";
 pub const RATE_STEM: &str = "rate_study";
 pub const ACTUATOR_STEM: &str = "actuator_study";
 pub const ONSET_STEM: &str = "onset_vs_friction";
+pub const OUTCOME_STEM: &str = "outcome_map";
+
+/// The outcome map's classes, in drawing order (bottom to top in a tile).
+pub const OUTCOME_CLASSES: [&str; 5] = [
+    "held and controlled",
+    "did not control",
+    "beyond the plan's limit",
+    "fell or diverged",
+    "not set up",
+];
+
+/// A run's class on the outcome map, from its `status` text in `cells.csv` and whether its
+/// condition is beyond the plan's limit: a fall is a fall wherever it happened; otherwise a
+/// run on a condition beyond the plan's limit is counted there (the plan asked for more than
+/// friction or the joints give, whatever the law did); `ok` is held and controlled; `error`
+/// was never run; every other status (a law that could not meet its constraints, a run that
+/// held up but did not control the robot, a status this report does not know) is "did not
+/// control".
+pub fn outcome_class(status: &str, beyond_limit: bool) -> usize {
+    match status {
+        "fell" | "diverged" => 3,
+        "error" => 4,
+        _ if beyond_limit => 2,
+        "ok" => 0,
+        _ => 1,
+    }
+}
 
 /// What each figure shows, for the list in `summary.md`.
 pub fn describe(stem: &str) -> &'static str {
@@ -32,6 +61,9 @@ pub fn describe(stem: &str) -> &'static str {
         ACTUATOR_STEM => "mean slip by actuator model, grouped by controller",
         ONSET_STEM => {
             "slip-onset angle vs friction coefficient, with the friction angle as the physical limit"
+        }
+        OUTCOME_STEM => {
+            "outcome of every run per condition (slope × μ), one panel per controller, with the friction angle and the plan's μ_required"
         }
         _ => "",
     }
@@ -119,6 +151,8 @@ pub fn plan(study: &Study, computed: &Computed) -> Planned {
         planned.skipped_stems.push(ACTUATOR_STEM);
     }
 
+    planned.figures.push(Figure::Map(outcome_map(study)));
+
     match &computed.onset {
         Some(tables) if !tables.is_empty() => {
             planned
@@ -134,6 +168,118 @@ pub fn plan(study: &Study, computed: &Computed) -> Planned {
         None => planned.skipped_stems.push(ONSET_STEM),
     }
     planned
+}
+
+/// The outcome map: per controller, every condition (slope × μ) as a tile split into the
+/// share of its runs (over rates, actuators, seeds and the other axes) in each outcome class,
+/// with the friction angle μ = tan θ and the plan's μ_required per slope (from the manifest).
+fn outcome_map(study: &Study) -> MapFigure {
+    let run = study.run;
+    let mut slopes: Vec<f64> = run.cells.iter().map(|c| c.slope_deg).collect();
+    let mut mus: Vec<f64> = run.cells.iter().map(|c| c.mu).collect();
+    for v in [&mut slopes, &mut mus] {
+        v.sort_by(f64::total_cmp);
+        v.dedup();
+    }
+    let limits: Vec<(f64, f64)> = slopes
+        .iter()
+        .filter_map(|&d| {
+            run.manifest
+                .plan_limit(d)
+                .map(|l| (d, l.mu_required))
+                .filter(|(_, m)| m.is_finite())
+        })
+        .collect();
+    let spacing = |v: &[f64], fallback: f64| {
+        v.windows(2)
+            .map(|w| w[1] - w[0])
+            .fold(f64::INFINITY, f64::min)
+            .min(fallback)
+    };
+    // Tiles of 80 % of the grid spacing; the axes hold whole tiles, and μ starts at 0 so the
+    // friction angle is in view from flat ground up.
+    let (sx, sy) = (spacing(&slopes, 10.0), spacing(&mus, 0.2));
+    let tile = (0.8 * sx, 0.8 * sy);
+    let (x_lo, x_hi) = (
+        slopes.first().copied().unwrap_or(0.0) - 0.5 * sx,
+        slopes.last().copied().unwrap_or(0.0) + 0.5 * sx,
+    );
+    let top_limit = limits.iter().map(|l| l.1).fold(0.0, f64::max);
+    let y_hi = (mus.last().copied().unwrap_or(1.0) + 0.5 * sy).max(top_limit * 1.05);
+    let y_lo = (mus.first().copied().unwrap_or(0.0) - 0.5 * sy).min(0.0);
+    let x = Scale {
+        lo: x_lo,
+        hi: x_hi,
+        ticks: slopes.clone(),
+        log: false,
+    };
+    let y = Scale {
+        lo: y_lo,
+        hi: y_hi,
+        ticks: mus.clone(),
+        log: false,
+    };
+    let panels = study
+        .controllers()
+        .iter()
+        .map(|name| {
+            let tiles = slopes
+                .iter()
+                .flat_map(|&d| mus.iter().map(move |&m| (d, m)))
+                .map(|(d, m)| {
+                    let beyond = run.manifest.beyond_plan_limit(d, m);
+                    let mut counts = vec![0; OUTCOME_CLASSES.len()];
+                    for c in run
+                        .cells
+                        .iter()
+                        .filter(|c| c.controller == *name && c.slope_deg == d && c.mu == m)
+                    {
+                        counts[outcome_class(c.status.name(), beyond)] += 1;
+                    }
+                    MapTile { x: d, y: m, counts }
+                })
+                .collect();
+            MapPanel {
+                title: name.clone(),
+                tiles,
+            }
+        })
+        .collect();
+    let n = 60;
+    let curve = (0..=n)
+        .map(|i| {
+            let d = x.lo + 0.98 * (x.hi - x.lo) * i as f64 / n as f64;
+            (d, d.to_radians().tan())
+        })
+        .collect();
+    MapFigure {
+        stem: OUTCOME_STEM.into(),
+        title: "How every run ended, by slope and ground friction".into(),
+        subtitle: format!(
+            "{} · each tile: the runs of one condition (all rates, actuators, seeds), split by outcome · dashed: friction angle μ = tan θ · solid: the plan's μ_required{}",
+            run.manifest.scenario_name,
+            if limits.is_empty() {
+                " (not in this run's manifest)"
+            } else {
+                ""
+            }
+        ),
+        classes: OUTCOME_CLASSES
+            .iter()
+            .zip(look::OUTCOMES)
+            .map(|(l, c)| (l.to_string(), c))
+            .collect(),
+        panels,
+        x_label: "slope (°)".into(),
+        y_label: "friction coefficient μ".into(),
+        x,
+        y,
+        tile,
+        curve,
+        curve_label: "friction angle μ = tan θ".into(),
+        limit: limits,
+        limit_label: "plan's μ_required".into(),
+    }
 }
 
 /// Shortest display of a number (no trailing zeros beyond what it needs).

@@ -165,6 +165,40 @@ pub struct Manifest {
     pub scenario_name: String,
     pub slip_floor_mm: f64,
     pub tool_version: String,
+    /// The plan's limit per slope (`plan_limits`; empty for runs made before it existed).
+    pub plan_limits: Vec<PlanLimit>,
+}
+
+/// The plan's own limit on one slope, as the runner wrote it (planner/limit.rs).
+#[derive(Clone, Debug, PartialEq)]
+pub struct PlanLimit {
+    pub slope_deg: f64,
+    /// Least friction any contact-force distribution needs for the plan (∞: none suffices).
+    pub mu_required: f64,
+    /// Where along the plan, s.
+    pub at_s: f64,
+    /// Share of the joint torque limits that distribution needs (NaN: undefined).
+    pub torque_share: f64,
+    /// μ_required with the torque limits imposed (∞: none suffices).
+    pub mu_required_torque_limited: f64,
+}
+
+impl Manifest {
+    /// The plan's limit on a slope, if the manifest has it.
+    pub fn plan_limit(&self, slope_deg: f64) -> Option<&PlanLimit> {
+        self.plan_limits
+            .iter()
+            .find(|l| (l.slope_deg - slope_deg).abs() < 1e-9)
+    }
+
+    /// Whether a condition (slope, μ) is beyond the plan's own limit: μ below what any force
+    /// distribution needs for the plan, or the plan needing more than the joints' torque limits
+    /// (torque share above 1). Such conditions are shown, never ranked, and left out of pooled
+    /// tables. False when the manifest has no limit for the slope (older runs).
+    pub fn beyond_plan_limit(&self, slope_deg: f64, mu: f64) -> bool {
+        self.plan_limit(slope_deg)
+            .is_some_and(|l| mu < l.mu_required || l.torque_share > 1.0)
+    }
 }
 
 /// One row of `timing.csv`: machine measurements, kept apart from `cells.csv` so that file is
@@ -276,11 +310,46 @@ pub fn read_manifest(path: &Path) -> Result<Manifest, String> {
             path.display()
         ));
     }
+    let plan_limits = match obj.get("plan_limits") {
+        None | Some(serde_json::Value::Null) => Vec::new(),
+        Some(v) => read_plan_limits(path, v)?,
+    };
     Ok(Manifest {
         scenario_name,
         slip_floor_mm,
         tool_version,
+        plan_limits,
     })
+}
+
+/// The manifest's `plan_limits`: an array of objects; null numbers mean "none suffices" for the
+/// friction fields and "undefined" for the torque share.
+fn read_plan_limits(path: &Path, v: &serde_json::Value) -> Result<Vec<PlanLimit>, String> {
+    let bad = |what: String| format!("{}: field 'plan_limits': {what}", path.display());
+    let rows = v
+        .as_array()
+        .ok_or_else(|| bad("must be an array of objects".into()))?;
+    rows.iter()
+        .enumerate()
+        .map(|(i, row)| {
+            let num = |name: &str, null: f64| -> Result<f64, String> {
+                match row.get(name) {
+                    Some(serde_json::Value::Null) => Ok(null),
+                    Some(x) => x.as_f64().filter(|x| x.is_finite()).ok_or_else(|| {
+                        bad(format!("entry {i}: '{name}' must be a number or null"))
+                    }),
+                    None => Err(bad(format!("entry {i}: missing '{name}'"))),
+                }
+            };
+            Ok(PlanLimit {
+                slope_deg: num("slope_deg", f64::NAN)?,
+                mu_required: num("mu_required", f64::INFINITY)?,
+                at_s: num("at_s", f64::NAN)?,
+                torque_share: num("torque_share", f64::NAN)?,
+                mu_required_torque_limited: num("mu_required_torque_limited", f64::INFINITY)?,
+            })
+        })
+        .collect()
 }
 
 /// The identity and axis columns of `cells.csv`, before the metrics.

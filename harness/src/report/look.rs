@@ -56,6 +56,17 @@ pub const LEVELS: [RGBColor; 6] = [
     RGBColor(0x9A, 0x76, 0x98),
 ];
 
+/// Outcome classes on the outcome map, in its order: held and controlled (moss), did not
+/// control (ochre), beyond the plan's limit (dusty plum), fell or diverged (terracotta), could
+/// not be set up (stone).
+pub const OUTCOMES: [RGBColor; 5] = [
+    RGBColor(0x5A, 0x8A, 0x3C),
+    RGBColor(0xD9, 0xA0, 0x2B),
+    RGBColor(0x9A, 0x76, 0x98),
+    RGBColor(0xC4, 0x57, 0x3A),
+    RGBColor(0xA8, 0xA2, 0x96),
+];
+
 /// Ordered shades (light → dark) for an ordered axis such as control rate.
 pub fn ramp(i: usize, n: usize) -> RGBColor {
     let light = (0xB9, 0xD8, 0xD3);

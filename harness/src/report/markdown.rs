@@ -228,6 +228,8 @@ is shown but not ranked in that row (listed as *not ranked (fell)*): its mean co
 runs it survived, usually the easier ones.\n"
     );
 
+    plan_limit_section(&mut out, study);
+
     // ---- slip by friction ---------------------------------------------------------------
     out.push_str("## Mean slip by friction coefficient\n\n");
     out.push_str(
@@ -425,6 +427,61 @@ table, group, controller and metric). This report was built from {} alone; \
         inputs.join(", ")
     );
     out
+}
+
+/// The plan's own limit per slope (from the manifest) and the conditions of this run beyond it.
+fn plan_limit_section(out: &mut String, study: &Study) {
+    let m = &study.run.manifest;
+    out.push_str("## The plan's own limit\n\n");
+    if m.plan_limits.is_empty() {
+        out.push_str("This run's manifest has no plan limit (made before it was computed).\n\n");
+        return;
+    }
+    out.push_str(
+        "μ_required is the least friction coefficient with which any distribution of contact \
+forces realises the planned motion on the robot's model (the largest over the plan, sampled \
+every 10 ms and at every phase boundary); the torque share is the largest share of the joint \
+torque limits that distribution needs. A condition with μ below μ_required, or a torque share \
+above 1, is **beyond the plan's limit**: no law can hold the plan there, so its runs are shown \
+but say nothing about the laws. `∞`: no friction suffices (the plan tips the robot).\n\n",
+    );
+    out.push_str(
+        "| slope | μ_required | at (s) | torque share | μ_required within torque limits | μ of this run beyond the limit |\n|---|---|---|---|---|---|\n",
+    );
+    let mut mus: Vec<f64> = study.run.cells.iter().map(|c| c.mu).collect();
+    mus.sort_by(f64::total_cmp);
+    mus.dedup();
+    let show = |x: f64| {
+        if x.is_finite() {
+            format!("{x:.3}")
+        } else if x.is_nan() {
+            "—".to_string()
+        } else {
+            "∞".to_string()
+        }
+    };
+    for l in &m.plan_limits {
+        let beyond: Vec<String> = mus
+            .iter()
+            .filter(|&&mu| m.beyond_plan_limit(l.slope_deg, mu))
+            .map(|mu| mu.to_string())
+            .collect();
+        let _ = writeln!(
+            out,
+            "| {}° | {} | {} | {} | {} | {} |",
+            l.slope_deg,
+            show(l.mu_required),
+            show(l.at_s),
+            show(l.torque_share),
+            show(l.mu_required_torque_limited),
+            if beyond.is_empty() {
+                "none".to_string()
+            } else {
+                beyond.join(", ")
+            }
+        );
+    }
+    out.push('\n');
 }
 
 fn plural(n: usize, word: &str) -> String {

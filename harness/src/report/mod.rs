@@ -16,9 +16,10 @@ mod tables;
 
 use std::path::{Path, PathBuf};
 
+pub use figures::{OUTCOME_CLASSES, outcome_class};
 pub use input::{
-    CELLS_FILE, Cell, MANIFEST_FILE, Manifest, Metric, ONSET_FILE, OnsetRow, Run, Status,
-    TIMING_FILE, Timing, read_run,
+    CELLS_FILE, Cell, MANIFEST_FILE, Manifest, Metric, ONSET_FILE, OnsetRow, PlanLimit, Run,
+    Status, TIMING_FILE, Timing, read_manifest, read_run,
 };
 pub use plots::Image;
 pub use stats::{Stat, mean_ci95, over_seeds, t_975};

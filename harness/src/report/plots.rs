@@ -254,6 +254,8 @@ enum LegendKey {
     Series(usize),
     Swatch(RGBColor),
     Dashed,
+    /// A solid line with small square markers (the plan's limit on the outcome map).
+    Line(RGBColor),
 }
 
 fn legend_width(label: &str) -> u32 {
@@ -377,6 +379,18 @@ fn draw_header<DB: DrawingBackend>(
             LegendKey::Swatch(c) => {
                 root.draw(&Rectangle::new(
                     [(kx + 4, ky - 6), (kx + 22, ky + 6)],
+                    c.filled(),
+                ))
+                .map_err(&e)?;
+            }
+            LegendKey::Line(c) => {
+                root.draw(&PathElement::new(
+                    vec![(kx, ky), (kx + 26, ky)],
+                    c.stroke_width(2),
+                ))
+                .map_err(&e)?;
+                root.draw(&Rectangle::new(
+                    [(kx + 10, ky - 3), (kx + 16, ky + 3)],
                     c.filled(),
                 ))
                 .map_err(&e)?;
@@ -883,10 +897,175 @@ impl BarFigure {
     }
 }
 
+/// One condition of an outcome map: where it sits and how many of its runs ended in each
+/// outcome class (in the figure's class order).
+#[derive(Clone, Debug)]
+pub struct MapTile {
+    pub x: f64,
+    pub y: f64,
+    pub counts: Vec<usize>,
+}
+
+/// One facet of an outcome map (one law).
+#[derive(Clone, Debug)]
+pub struct MapPanel {
+    pub title: String,
+    pub tiles: Vec<MapTile>,
+}
+
+/// Outcome classes over two axes (slope × μ), one facet per law: each condition a tile split
+/// bottom to top into its runs' classes, with a dashed reference curve (the friction angle)
+/// and a solid limit line (the plan's μ_required per slope).
+#[derive(Clone, Debug)]
+pub struct MapFigure {
+    pub stem: String,
+    pub title: String,
+    pub subtitle: String,
+    /// Class labels and colours, bottom to top in every tile.
+    pub classes: Vec<(String, RGBColor)>,
+    pub panels: Vec<MapPanel>,
+    pub x_label: String,
+    pub y_label: String,
+    pub x: Scale,
+    pub y: Scale,
+    /// Tile size in axis units.
+    pub tile: (f64, f64),
+    /// Dashed reference curve and its legend label.
+    pub curve: Vec<(f64, f64)>,
+    pub curve_label: String,
+    /// Solid limit line (points off the axis are clipped) and its legend label; empty when
+    /// the run has no limit.
+    pub limit: Vec<(f64, f64)>,
+    pub limit_label: String,
+}
+
+impl MapFigure {
+    fn grid(&self) -> (usize, usize) {
+        let n = self.panels.len().max(1);
+        let cols = n.min(MAX_COLS);
+        (n.div_ceil(cols), cols)
+    }
+
+    fn legend(&self) -> Vec<(LegendKey, String)> {
+        let mut keys: Vec<(LegendKey, String)> = self
+            .classes
+            .iter()
+            .map(|(l, c)| (LegendKey::Swatch(*c), l.clone()))
+            .collect();
+        keys.push((LegendKey::Dashed, self.curve_label.clone()));
+        if !self.limit.is_empty() {
+            keys.push((LegendKey::Line(TAB), self.limit_label.clone()));
+        }
+        keys
+    }
+
+    /// Pixel size of the figure (the same for the SVG and the PNG).
+    pub fn size(&self) -> (u32, u32) {
+        let (rows, cols) = self.grid();
+        let width = (2 * MARGIN + cols as u32 * PANEL_W).max(MIN_WIDTH);
+        let labels: Vec<String> = self.legend().into_iter().map(|(_, l)| l).collect();
+        let height =
+            header_height(&self.subtitle, &labels, width) + rows as u32 * PANEL_H + MARGIN / 2;
+        (width, height)
+    }
+
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        let e = err::<DrawingAreaErrorKind<DB::ErrorType>>(&self.stem);
+        let body = framed_body(
+            root,
+            &self.stem,
+            &self.title,
+            &self.subtitle,
+            &self.legend(),
+            self.size().0,
+        )?;
+        let (rows, cols) = self.grid();
+        let cells = body.split_evenly((rows, cols));
+        let (w, h) = (self.tile.0 / 2.0, self.tile.1 / 2.0);
+        let inside = |(x, y): (f64, f64)| {
+            x >= self.x.lo && x <= self.x.hi && y >= self.y.lo && y <= self.y.hi
+        };
+        for (panel, area) in self.panels.iter().zip(cells.iter()) {
+            let mut chart = field(
+                area,
+                Some(&panel.title),
+                &self.x,
+                &[],
+                &self.y,
+                &self.x_label,
+                &self.y_label,
+            )?;
+            for tile in &panel.tiles {
+                let total: usize = tile.counts.iter().sum();
+                if total == 0 {
+                    continue;
+                }
+                let mut bottom = tile.y - h;
+                for (k, &n) in tile.counts.iter().enumerate() {
+                    if n == 0 {
+                        continue;
+                    }
+                    let top = bottom + 2.0 * h * n as f64 / total as f64;
+                    let color = self.classes.get(k).map(|c| c.1).unwrap_or(MUTED);
+                    chart
+                        .draw_series(std::iter::once(Rectangle::new(
+                            [(tile.x - w, bottom), (tile.x + w, top)],
+                            color.filled(),
+                        )))
+                        .map_err(&e)?;
+                    bottom = top;
+                }
+                chart
+                    .draw_series(std::iter::once(Rectangle::new(
+                        [(tile.x - w, tile.y - h), (tile.x + w, tile.y + h)],
+                        FRAME.stroke_width(1),
+                    )))
+                    .map_err(&e)?;
+            }
+            // The curves broken where they leave the field.
+            let mut runs: Vec<Vec<(f64, f64)>> = vec![Vec::new()];
+            for p in &self.curve {
+                if inside(*p) {
+                    runs.last_mut().expect("one run").push(*p);
+                } else if !runs.last().expect("one run").is_empty() {
+                    runs.push(Vec::new());
+                }
+            }
+            for run in runs.into_iter().filter(|r| r.len() >= 2) {
+                chart
+                    .draw_series(std::iter::once(DashedPathElement::new(
+                        run,
+                        7,
+                        4,
+                        REFERENCE.stroke_width(2),
+                    )))
+                    .map_err(&e)?;
+            }
+            let limit: Vec<(f64, f64)> =
+                self.limit.iter().copied().filter(|p| inside(*p)).collect();
+            if limit.len() >= 2 {
+                chart
+                    .draw_series(std::iter::once(PathElement::new(
+                        limit.clone(),
+                        TAB.stroke_width(2),
+                    )))
+                    .map_err(&e)?;
+            }
+            chart
+                .draw_series(limit.iter().map(|p| {
+                    EmptyElement::at(*p) + Rectangle::new([(-3, -3), (3, 3)], TAB.filled())
+                }))
+                .map_err(&e)?;
+        }
+        root.present().map_err(&e)
+    }
+}
+
 /// A figure that can be drawn on any backend.
 pub enum Figure {
     Lines(LineFigure),
     Bars(BarFigure),
+    Map(MapFigure),
 }
 
 impl Figure {
@@ -894,6 +1073,7 @@ impl Figure {
         match self {
             Figure::Lines(f) => &f.stem,
             Figure::Bars(f) => &f.stem,
+            Figure::Map(f) => &f.stem,
         }
     }
 
@@ -901,6 +1081,7 @@ impl Figure {
         match self {
             Figure::Lines(f) => f.size(),
             Figure::Bars(f) => f.size(),
+            Figure::Map(f) => f.size(),
         }
     }
 
@@ -908,6 +1089,7 @@ impl Figure {
         match self {
             Figure::Lines(f) => f.draw(root),
             Figure::Bars(f) => f.draw(root),
+            Figure::Map(f) => f.draw(root),
         }
     }
 
