@@ -21,13 +21,16 @@ pub enum Status {
     Fell,
     Diverged,
     Infeasible,
+    /// Stayed up but the law did not control the robot (torque limits, tracking, oscillation).
+    NoControl,
     Error,
 }
 
 impl Status {
-    pub const ALL: [Status; 5] = [
+    pub const ALL: [Status; 6] = [
         Status::Ok,
         Status::Infeasible,
+        Status::NoControl,
         Status::Fell,
         Status::Diverged,
         Status::Error,
@@ -39,6 +42,7 @@ impl Status {
             Status::Fell => "fell",
             Status::Diverged => "diverged",
             Status::Infeasible => "infeasible",
+            Status::NoControl => "no-control",
             Status::Error => "error",
         }
     }
@@ -47,12 +51,18 @@ impl Status {
         Status::ALL.into_iter().find(|st| st.name() == s)
     }
 
-    /// Runs that went the whole planned duration. An infeasible law still drove the robot to
-    /// the end (with its closest feasible command), so its slip and tracking are comparable;
-    /// a run that fell or diverged stopped early and its averages cover a different, shorter
-    /// motion, so they would flatter or punish the law arbitrarily.
+    /// Runs whose numbers enter means and rankings: only those that held and whose law
+    /// controlled the robot and met its constraints. An infeasible or no-control run went the
+    /// whole duration, but what it measures is the law giving way, not the law; a run that
+    /// fell or diverged stopped early and its averages cover a different, shorter motion.
+    /// Every other outcome is counted and shown beside its condition, never ranked.
     pub fn counts_for_means(self) -> bool {
-        matches!(self, Status::Ok | Status::Infeasible)
+        matches!(self, Status::Ok)
+    }
+
+    /// Runs that stayed up to the end of the plan (whatever their law did).
+    pub fn held(self) -> bool {
+        matches!(self, Status::Ok | Status::Infeasible | Status::NoControl)
     }
 
     /// Runs the robot did not survive.
@@ -81,10 +91,16 @@ pub enum Metric {
     FrictionUseMax,
     FrictionOverShare,
     LawTroubleShare,
+    LawSolvedShare,
+    LawInfeasibleShare,
+    LawUnderactuatedShare,
+    LawFailedShare,
+    StanceOffGroundShare,
+    TorqueFlipRate,
 }
 
 impl Metric {
-    pub const ALL: [Metric; 17] = [
+    pub const ALL: [Metric; 23] = [
         Metric::SimTime,
         Metric::SlipMean,
         Metric::SlipMax,
@@ -102,6 +118,12 @@ impl Metric {
         Metric::FrictionUseMax,
         Metric::FrictionOverShare,
         Metric::LawTroubleShare,
+        Metric::LawSolvedShare,
+        Metric::LawInfeasibleShare,
+        Metric::LawUnderactuatedShare,
+        Metric::LawFailedShare,
+        Metric::StanceOffGroundShare,
+        Metric::TorqueFlipRate,
     ];
 
     /// Column name in `cells.csv` (and metric name in `summary.csv`).
@@ -124,6 +146,12 @@ impl Metric {
             Metric::FrictionUseMax => "friction_use_max",
             Metric::FrictionOverShare => "friction_over_share",
             Metric::LawTroubleShare => "law_trouble_share",
+            Metric::LawSolvedShare => "law_solved_share",
+            Metric::LawInfeasibleShare => "law_infeasible_share",
+            Metric::LawUnderactuatedShare => "law_underactuated_share",
+            Metric::LawFailedShare => "law_failed_share",
+            Metric::StanceOffGroundShare => "stance_off_ground_share",
+            Metric::TorqueFlipRate => "torque_flip_rate_hz",
         }
     }
 
@@ -324,7 +352,7 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
         let status = Status::parse(status_text).ok_or_else(|| {
             row.error(
                 "status",
-                &format!("unknown status '{status_text}'; expected one of ok, fell, diverged, infeasible, error"),
+                &format!("unknown status '{status_text}'; expected one of ok, infeasible, no-control, fell, diverged, error"),
             )
         })?;
         let mut metrics = [f64::NAN; Metric::ALL.len()];

@@ -62,7 +62,7 @@ pub(crate) struct Computed {
     pub per_controller: Vec<(Measure, Vec<Entry>)>,
     pub conditions: Vec<Condition>,
     pub records: Vec<LawRecord>,
-    pub statuses: Vec<[usize; 5]>,
+    pub statuses: Vec<[usize; input::Status::ALL.len()]>,
     pub compute: Option<Vec<ComputeRow>>,
     pub onset: Option<Vec<OnsetTable>>,
 }

@@ -214,6 +214,12 @@ impl Measure {
                 Metric::FrictionUseMax => "peak friction use ‖f_t‖/(μ f_n)",
                 Metric::FrictionOverShare => "stance time at the friction limit (%)",
                 Metric::LawTroubleShare => "steps the law did not solve (%)",
+                Metric::LawSolvedShare => "steps the law solved (%)",
+                Metric::LawInfeasibleShare => "steps the law found infeasible (%)",
+                Metric::LawUnderactuatedShare => "steps the law found underactuated (%)",
+                Metric::LawFailedShare => "steps the law failed (%)",
+                Metric::StanceOffGroundShare => "planned stance time off the ground (%)",
+                Metric::TorqueFlipRate => "torque reversals per second, worst joint",
             },
             Measure::ProgressShare => "progress made (% of plan)",
         }
@@ -223,7 +229,14 @@ impl Measure {
     pub fn display_scale(self) -> f64 {
         match self {
             Measure::Plain(
-                Metric::TorqueLimitShare | Metric::FrictionOverShare | Metric::LawTroubleShare,
+                Metric::TorqueLimitShare
+                | Metric::FrictionOverShare
+                | Metric::LawTroubleShare
+                | Metric::LawSolvedShare
+                | Metric::LawInfeasibleShare
+                | Metric::LawUnderactuatedShare
+                | Metric::LawFailedShare
+                | Metric::StanceOffGroundShare,
             )
             | Measure::ProgressShare => 100.0,
             Measure::Plain(_) => 1.0,
@@ -247,9 +260,10 @@ pub const TRACKING_EFFORT: [Measure; 8] = [
 ];
 
 /// Contact and law-health columns of the per-controller table.
-pub const CONTACT_HEALTH: [Measure; 5] = [
+pub const CONTACT_HEALTH: [Measure; 6] = [
     Measure::Plain(Metric::SlipMax),
     Measure::Plain(Metric::SlipTotal),
+    Measure::Plain(Metric::StanceOffGroundShare),
     Measure::Plain(Metric::FrictionUseMax),
     Measure::Plain(Metric::FrictionOverShare),
     Measure::Plain(Metric::LawTroubleShare),
@@ -258,7 +272,7 @@ pub const CONTACT_HEALTH: [Measure; 5] = [
 /// One table entry: a group of cells of one controller.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Entry {
-    /// Over the group's ok/infeasible cells; `None` when it has none with a defined value.
+    /// Over the group's ok cells; `None` when it has none with a defined value.
     pub stat: Option<Stat>,
     /// Cells of the group that fell or diverged (not in the mean).
     pub fell: usize,
@@ -637,8 +651,8 @@ impl<'a> Study<'a> {
     }
 
     /// Status counts per controller, in [`Status::ALL`] order.
-    pub fn status_counts(&self) -> Vec<[usize; 5]> {
-        let mut out = vec![[0usize; 5]; self.controllers().len()];
+    pub fn status_counts(&self) -> Vec<[usize; Status::ALL.len()]> {
+        let mut out = vec![[0usize; Status::ALL.len()]; self.controllers().len()];
         for (cell, c) in self.run.cells.iter().zip(&self.ctrl) {
             if let Some(k) = Status::ALL.iter().position(|s| *s == cell.status) {
                 out[*c][k] += 1;
