@@ -155,6 +155,20 @@ impl Metric {
         }
     }
 
+    /// Columns added after the first release of `cells.csv` (law-status shares, off-ground
+    /// share, torque reversals): a run folder written before them still reads, with NaN.
+    fn is_optional(self) -> bool {
+        matches!(
+            self,
+            Metric::LawSolvedShare
+                | Metric::LawInfeasibleShare
+                | Metric::LawUnderactuatedShare
+                | Metric::LawFailedShare
+                | Metric::StanceOffGroundShare
+                | Metric::TorqueFlipRate
+        )
+    }
+
     /// Whether the column holds a count rather than a measurement.
     fn is_integer(self) -> bool {
         matches!(self, Metric::StancePhases)
@@ -177,6 +191,10 @@ pub struct Cell {
     pub seed: u64,
     pub status: Status,
     pub message: String,
+    /// Whether the cell's condition is beyond the plan's physical limit (μ below the plan's
+    /// μ_required or a torque share above 1): shown, never ranked, kept out of the means.
+    /// Set by [`beyond_plan_limit`] when the run is read.
+    pub beyond_plan_limit: bool,
     metrics: [f64; Metric::ALL.len()],
 }
 
@@ -240,7 +258,10 @@ pub fn read_run(dir: &Path) -> Result<Run, String> {
         ));
     }
     let manifest = read_manifest(&dir.join(MANIFEST_FILE))?;
-    let cells = read_cells(&dir.join(CELLS_FILE))?;
+    let mut cells = read_cells(&dir.join(CELLS_FILE))?;
+    for c in &mut cells {
+        c.beyond_plan_limit = beyond_plan_limit(&manifest, c);
+    }
     let timing_path = dir.join(TIMING_FILE);
     let (timing, timing_unmatched) = if timing_path.exists() {
         let known: HashSet<&str> = cells.iter().map(|c| c.id.as_str()).collect();
@@ -269,6 +290,15 @@ pub fn read_run(dir: &Path) -> Result<Run, String> {
         timing_unmatched,
         onset,
     })
+}
+
+/// HOOK (issue 10, parts 1–2: the plan's friction limit). Whether a cell's condition is beyond
+/// what its plan allows any law to hold: μ below the plan's μ_required for the cell's slope, or
+/// a torque share above 1. The single place the report asks; every table that ranks or pools
+/// excludes such cells ([`Cell::beyond_plan_limit`]). Until the manifest carries μ_required
+/// per slope, no condition is beyond the limit.
+pub fn beyond_plan_limit(_manifest: &Manifest, _cell: &Cell) -> bool {
+    false
 }
 
 /// Reads `manifest.json`; only the three fields the report needs are required.
@@ -331,7 +361,12 @@ const CELL_KEY_COLUMNS: [&str; 13] = [
 /// Reads `cells.csv` and returns the cells in matrix order.
 pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
     let mut required: Vec<&str> = CELL_KEY_COLUMNS.to_vec();
-    required.extend(Metric::ALL.iter().map(|m| m.column()));
+    required.extend(
+        Metric::ALL
+            .iter()
+            .filter(|m| !m.is_optional())
+            .map(|m| m.column()),
+    );
     let table = CsvTable::read(path, &required)?;
     let mut cells = Vec::with_capacity(table.rows.len());
     let mut seen_id: HashMap<String, usize> = HashMap::new();
@@ -357,7 +392,9 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
         })?;
         let mut metrics = [f64::NAN; Metric::ALL.len()];
         for m in Metric::ALL {
-            metrics[m as usize] = if m.is_integer() {
+            metrics[m as usize] = if m.is_optional() && !table.columns.contains_key(m.column()) {
+                f64::NAN
+            } else if m.is_integer() {
                 row.integer(m.column())? as f64
             } else {
                 row.number(m.column())?
@@ -377,6 +414,7 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
             seed: row.integer("seed")?,
             status,
             message: row.text("message")?.to_string(),
+            beyond_plan_limit: false,
             metrics,
         });
     }

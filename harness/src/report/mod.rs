@@ -81,15 +81,14 @@ impl Computed {
         Computed {
             slip_by_friction: study.slip_by_friction(),
             tracking_by_friction: study.tracking_by_friction(),
-            rate_slip: study.pivot("rate_study", None, Axis::Rate, tables::SLIP, true),
-            rate_tracking: study.pivot("rate_study", None, Axis::Rate, tables::BASE_POS, false),
-            actuator_slip: study.pivot("actuator_study", None, Axis::Actuator, tables::SLIP, true),
-            actuator_tracking: study.pivot(
+            // Each law against itself, within the conditions where every compared run held.
+            rate_slip: study.within_law("rate_study", Axis::Rate, tables::SLIP),
+            rate_tracking: study.within_law("rate_study", Axis::Rate, tables::BASE_POS),
+            actuator_slip: study.within_law("actuator_study", Axis::Actuator, tables::SLIP),
+            actuator_tracking: study.within_law(
                 "actuator_study",
-                None,
                 Axis::Actuator,
                 tables::BASE_POS,
-                false,
             ),
             per_controller,
             conditions,
