@@ -382,7 +382,10 @@ fn cone_program_ratios_at_the_contact_point_equal_tan_theta_standing_on_slopes()
                         continue;
                     }
                     let ratio = (f - n * f.dot(&n)).norm() / f.dot(&n);
-                    eprintln!("{} {deg}° foot {i}: ratio {ratio:.5}, tan θ {tan:.5}", r.model.name);
+                    eprintln!(
+                        "{} {deg}° foot {i}: ratio {ratio:.5}, tan θ {tan:.5}",
+                        r.model.name
+                    );
                     assert!(
                         (ratio - tan).abs() < 0.01 * tan + 1e-3,
                         "{} {deg}° foot {i}: ratio {ratio} vs tan θ {tan}",

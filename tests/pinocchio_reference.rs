@@ -215,7 +215,10 @@ fn contact_point_jacobians_and_statics_forces_match_pinocchio_on_slopes() {
                     .map(|(row, c)| theirs[row][v_map[c]])
                     .collect();
                 let e_j = rel_err(&ours, &their);
-                assert!(e_p < 1e-9 && e_j < 1e-9, "{urdf_rel} {deg}° foot {i}: {e_p:e} {e_j:e}");
+                assert!(
+                    e_p < 1e-9 && e_j < 1e-9,
+                    "{urdf_rel} {deg}° foot {i}: {e_p:e} {e_j:e}"
+                );
                 worst = worst.max(e_p).max(e_j);
             }
             for (key, skip) in [("all", None), ("all_but_first", Some(0))] {

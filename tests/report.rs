@@ -515,10 +515,22 @@ fn report_full_run_all_figures() {
     let md = run.read("summary.md");
     assert!(md.contains("### Slope 0°") && md.contains("### Slope 15°"));
     assert!(md.contains("## What control rate buys"));
+    // stiff-pd slips most at 100 Hz and least at 1000 Hz: pooling the rates hides that, so
+    // the slip tables are also given per rate and actuator model.
+    assert!(
+        md.contains("Pooling control rates and actuator models changes the answer"),
+        "{md}"
+    );
+    let r = md_row(&md, "#### Slope 15°, 1000 Hz, ideal", "0.3");
+    assert!(r.contains("stiff-pd (by"), "{r}");
+    let r = md_row(&md, "#### Slope 15°, 100 Hz, ideal", "1");
+    assert!(!r.contains("stiff-pd (by"), "{r}");
     // Each law against itself across rates: stiff-pd fell at 100 Hz on 15°, μ 0.3 (all three
     // actuators), so those conditions leave its rate comparison at both rates.
     assert!(
-        md.contains("Conditions compared: stiff-pd 15 of 18, id-lean 18 of 18, id-grip-load 18 of 18."),
+        md.contains(
+            "Conditions compared: stiff-pd 15 of 18, id-lean 18 of 18, id-grip-load 18 of 18."
+        ),
         "{md}"
     );
     assert!(md.contains("| 100 Hz |") && md.contains("| open-current |"));

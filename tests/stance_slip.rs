@@ -72,7 +72,10 @@ fn stand(slope_deg: f64, mu: f64, duration: f64, lift: Option<&[(&str, f64)]>) -
     let mut rot_prev = rotations(&mut ws, &q);
     // Before the first step the plant has no read-out: the centres from the kinematics.
     forward_kinematics(model, &mut ws, &q);
-    let centres0: Vec<Vec3> = feet.iter().map(|&f| frame_pose(model, &ws, f).trans).collect();
+    let centres0: Vec<Vec3> = feet
+        .iter()
+        .map(|&f| frame_pose(model, &ws, f).trans)
+        .collect();
     let mut kin = vec![Vec3::zeros(); nf];
     let mut point_prev: Vec<Vec3> = centres0.iter().map(|c| c - n * r).collect();
     let lift_idx: Vec<(usize, f64)> = lift
@@ -166,7 +169,10 @@ fn slip_read_out_matches_the_feet_kinematics_in_slow_creep_and_fast_sliding() {
     assert_agree("slide", &slide);
     // The regimes are what they claim: centimetres a second against metres a second (measured
     // 52 mm and 1224 mm over the second when written).
-    assert!(creep_mm > 0.5 && creep_mm < 100.0, "creep slip {creep_mm} mm");
+    assert!(
+        creep_mm > 0.5 && creep_mm < 100.0,
+        "creep slip {creep_mm} mm"
+    );
     assert!(
         slide.slip_max_mm > 10.0 * creep_mm && slide.slip_max_mm > 500.0,
         "slide slip {} mm",
@@ -180,12 +186,7 @@ fn slip_read_out_matches_the_feet_kinematics_in_slow_creep_and_fast_sliding() {
 fn a_lifted_and_dragged_stance_foot_counts_as_slip() {
     // Foot 0 (front left) stays planned in stance while its leg's target folds the knee and
     // swings the leg: the foot leaves the ground and is carried forward.
-    let m = stand(
-        0.0,
-        1.0,
-        1.0,
-        Some(&[("fl_knee", -0.8), ("fl_swing", 0.5)]),
-    );
+    let m = stand(0.0, 1.0, 1.0, Some(&[("fl_knee", -0.8), ("fl_swing", 0.5)]));
     assert_agree("lifted", &m);
     let moved = m.from_kinematics[0].norm();
     eprintln!(

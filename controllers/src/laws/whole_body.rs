@@ -10,8 +10,8 @@
 
 use super::{LawSettings, LawStatus, Observation, Target};
 use crate::algorithms::{
-    Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics,
-    point_jacobian, rnea_after_fk, velocities_and_bias,
+    Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics, point_jacobian,
+    rnea_after_fk, velocities_and_bias,
 };
 use crate::configuration::difference_into;
 use crate::dense::{

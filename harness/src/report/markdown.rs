@@ -247,7 +247,7 @@ in a row that did not end `ok`, or beyond the plan's limit, is shown but not ran
         "Mean slip per stance phase (mm) by static friction coefficient μ (rows) and controller \
 (columns), one table per slope.\n\n",
     );
-    for p in &computed.slip_by_friction {
+    for (s_idx, p) in computed.slip_by_friction.iter().enumerate() {
         if let Some((a, i)) = p.fixed {
             let t = study.axes.value_text(a, i);
             let mut chars = t.chars();
@@ -258,6 +258,23 @@ in a row that did not end `ok`, or beyond the plan's limit, is shown but not ran
             let _ = writeln!(out, "### {title}\n");
         }
         pivot_table(&mut out, study, p);
+        if let Some(split) = computed.slip_by_regime.get(s_idx).filter(|v| !v.is_empty()) {
+            out.push_str(
+                "Pooling control rates and actuator models changes the answer on this slope (some \
+row's lowest or tied laws differ in some regime), so here is the table per control rate and \
+actuator model:\n\n",
+            );
+            for sp in split {
+                let title: Vec<String> = sp
+                    .fixed
+                    .iter()
+                    .chain(&sp.extra_fixed)
+                    .map(|(a, v)| study.axes.value_text(*a, *v))
+                    .collect();
+                let _ = writeln!(out, "#### {}\n", capitalise(&title.join(", ")));
+                pivot_table(&mut out, study, sp);
+            }
+        }
     }
 
     // ---- rate and actuator studies ------------------------------------------------------

@@ -53,6 +53,8 @@ pub struct ReportSummary {
 /// Every table of the report, computed once and read by the three writers.
 pub(crate) struct Computed {
     pub slip_by_friction: Vec<Pivot>,
+    /// Per slope: the per-(rate, actuator) slip tables where pooling changes the answer.
+    pub slip_by_regime: Vec<Vec<Pivot>>,
     pub tracking_by_friction: Vec<Pivot>,
     pub rate_slip: Pivot,
     pub rate_tracking: Pivot,
@@ -77,19 +79,18 @@ impl Computed {
             .map(|m| (*m, (0..n_ctrl).map(|c| study.entry(c, &[], *m)).collect()))
             .collect();
         let conditions = study.conditions();
+        let slip_by_friction = study.slip_by_friction();
+        let slip_by_regime = study.slip_by_regime(&slip_by_friction);
         let records = study.records(&conditions);
         Computed {
-            slip_by_friction: study.slip_by_friction(),
+            slip_by_friction,
+            slip_by_regime,
             tracking_by_friction: study.tracking_by_friction(),
             // Each law against itself, within the conditions where every compared run held.
             rate_slip: study.within_law("rate_study", Axis::Rate, tables::SLIP),
             rate_tracking: study.within_law("rate_study", Axis::Rate, tables::BASE_POS),
             actuator_slip: study.within_law("actuator_study", Axis::Actuator, tables::SLIP),
-            actuator_tracking: study.within_law(
-                "actuator_study",
-                Axis::Actuator,
-                tables::BASE_POS,
-            ),
+            actuator_tracking: study.within_law("actuator_study", Axis::Actuator, tables::BASE_POS),
             per_controller,
             conditions,
             records,

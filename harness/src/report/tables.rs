@@ -352,7 +352,10 @@ fn seed_samples<'a>(
 }
 
 /// Per-seed means of the cells that count (non-finite values left out), by seed.
-pub fn seed_means<'a>(cells: impl Iterator<Item = &'a Cell>, measure: Measure) -> BTreeMap<u64, f64> {
+pub fn seed_means<'a>(
+    cells: impl Iterator<Item = &'a Cell>,
+    measure: Measure,
+) -> BTreeMap<u64, f64> {
     let mut acc: BTreeMap<u64, (f64, usize)> = BTreeMap::new();
     for (seed, v) in seed_samples(cells, measure) {
         if v.is_finite() {
@@ -502,6 +505,8 @@ pub struct Pivot {
     /// Table name in `summary.csv`.
     pub table: &'static str,
     pub fixed: Option<(Axis, usize)>,
+    /// Further fixed axis values (the per-regime slip tables fix the rate and actuator too).
+    pub extra_fixed: Vec<(Axis, usize)>,
     pub row_axis: Axis,
     pub measure: Measure,
     pub rows: Vec<PivotRow>,
@@ -652,10 +657,23 @@ impl<'a> Study<'a> {
         measure: Measure,
         judged: bool,
     ) -> Pivot {
+        let all: Vec<(Axis, usize)> = fixed.into_iter().collect();
+        self.pivot_fixed(table, &all, row_axis, measure, judged)
+    }
+
+    /// [`Study::pivot`] with any number of fixed axis values.
+    pub fn pivot_fixed(
+        &self,
+        table: &'static str,
+        fixed_all: &[(Axis, usize)],
+        row_axis: Axis,
+        measure: Measure,
+        judged: bool,
+    ) -> Pivot {
         let rows = (0..self.axes.len(row_axis))
             .map(|value| {
                 let mut sel = vec![(row_axis, value)];
-                sel.extend(fixed);
+                sel.extend(fixed_all.iter().copied());
                 let entries: Vec<Entry> = (0..self.controllers().len())
                     .map(|c| self.entry(c, &sel, measure))
                     .collect();
@@ -690,13 +708,60 @@ impl<'a> Study<'a> {
             .collect();
         Pivot {
             table,
-            fixed,
+            fixed: fixed_all.first().copied(),
+            extra_fixed: fixed_all.iter().skip(1).copied().collect(),
             row_axis,
             measure,
             rows,
             judged,
             matched: None,
         }
+    }
+
+    /// Per slope, the slip-by-friction tables of each (control rate, actuator model) — but only
+    /// for the slopes where pooling rates and actuators changes the answer: some row's leaders
+    /// (winner or tied laws) in some regime differ from the pooled table's. Empty for a slope
+    /// whose pooled verdicts hold in every regime.
+    pub fn slip_by_regime(&self, pooled: &[Pivot]) -> Vec<Vec<Pivot>> {
+        let (n_rate, n_act) = (self.axes.len(Axis::Rate), self.axes.len(Axis::Actuator));
+        (0..self.axes.len(Axis::Slope))
+            .map(|s| {
+                if n_rate * n_act < 2 {
+                    return Vec::new();
+                }
+                let mut split = Vec::new();
+                for r in 0..n_rate {
+                    for a in 0..n_act {
+                        let p = self.pivot_fixed(
+                            "slip_by_friction_regime",
+                            &[(Axis::Slope, s), (Axis::Rate, r), (Axis::Actuator, a)],
+                            Axis::Mu,
+                            SLIP,
+                            true,
+                        );
+                        if p.rows
+                            .iter()
+                            .any(|row| row.entries.iter().any(|e| e.cells > 0))
+                        {
+                            split.push(p);
+                        }
+                    }
+                }
+                let leaders = |row: &PivotRow| {
+                    row.verdict
+                        .as_ref()
+                        .map(Verdict::leaders)
+                        .unwrap_or_default()
+                };
+                let changes = split.iter().any(|p| {
+                    p.rows.iter().zip(&pooled[s].rows).any(|(row, pooled_row)| {
+                        !matches!(row.verdict, Some(Verdict::NoData) | None)
+                            && leaders(row) != leaders(pooled_row)
+                    })
+                });
+                if changes { split } else { Vec::new() }
+            })
+            .collect()
     }
 
     /// Each law against itself across the values of `axis` (control rates, actuator models):
@@ -763,6 +828,7 @@ impl<'a> Study<'a> {
         Pivot {
             table,
             fixed: None,
+            extra_fixed: Vec::new(),
             row_axis: axis,
             measure,
             rows,
@@ -1046,13 +1112,26 @@ mod tests {
         // One seed: nothing to test.
         assert!(!paired_difference_significant(&m(&[1.0]), &m(&[5.0])));
         // A constant nonzero difference is significant; equal values are not.
-        assert!(paired_difference_significant(&m(&[1.0, 1.0]), &m(&[1.5, 1.5])));
-        assert!(!paired_difference_significant(&m(&[1.0, 1.0]), &m(&[1.0, 1.0])));
+        assert!(paired_difference_significant(
+            &m(&[1.0, 1.0]),
+            &m(&[1.5, 1.5])
+        ));
+        assert!(!paired_difference_significant(
+            &m(&[1.0, 1.0]),
+            &m(&[1.0, 1.0])
+        ));
         // The verdict: a gap above the floor without support is a tie.
         let v = judge_paired(&[(0, m(&[1.0, 2.0, 4.0])), (1, m(&[2.0, 2.5, 3.0]))], 0.0);
         assert_eq!(v, Verdict::Tied(vec![0, 1]));
         let v = judge_paired(&[(0, m(&[1.0, 1.0, 1.0])), (1, m(&[1.5, 1.5, 1.5]))], 0.2);
-        assert!(matches!(v, Verdict::Lowest { ctrl: 0, runner_up: 1, .. }));
+        assert!(matches!(
+            v,
+            Verdict::Lowest {
+                ctrl: 0,
+                runner_up: 1,
+                ..
+            }
+        ));
     }
 
     #[test]
