@@ -259,7 +259,7 @@ fn contact_point_jacobians_and_statics_forces_match_pinocchio_on_slopes() {
                             .as_array()
                             .unwrap()
                             .iter()
-                            .flat_map(|f| vec_of(f))
+                            .flat_map(vec_of)
                             .collect();
                         let e = rel_err(&ours, &theirs);
                         assert!(e < 1e-9, "{urdf_rel} {deg}° {key}: forces differ by {e:e}");
