@@ -30,7 +30,7 @@ use gripsweep::plant::actuator::{Actuator, ActuatorKind};
 use gripsweep::plant::terrain::{Slope, Terrain};
 use gripsweep::scenario::Scenario;
 use gripsweep_controllers::algorithms::base_pose;
-use gripsweep_controllers::laws::{LawStatus, Observation, Target, build_law};
+use gripsweep_controllers::laws::{LawSettings, Observation, Target, build_law};
 use gripsweep_controllers::spatial::Vec3;
 use nalgebra::DVector;
 use std::hint::black_box;
@@ -95,13 +95,18 @@ fn replay(s: &Scenario, robot: &gripsweep::robot::LoadedRobot, cell: &Cell) -> P
     let (mut q, mut v) = plan.initial_state();
     plant.set_state(&q, &v);
     let law_model = controller_model(model, cell.mass_scale, cell.com_shift_mm);
-    let settings_law = law_settings(&s.laws, &slope, cell.mu, s.mu_estimate_scale);
+    let settings_law = LawSettings {
+        foot_radius: robot.facts.feet.radius,
+        ..law_settings(&s.laws, &slope, cell.mu, s.mu_estimate_scale)
+    };
     let mut law = build_law(&cell.controller, law_model, feet.clone(), &settings_law).expect("law");
     let steps = (s.duration / dt).round() as usize;
     let every = (1.0 / (cell.rate_hz * dt)).round().max(1.0) as usize;
     let uphill = slope.uphill();
     let start = Vec3::new(q[0], q[1], q[2]);
-    let mut acc = MetricsAccumulator::new(feet.len(), dt, cell.mu, start);
+    let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
+    let mut acc =
+        MetricsAccumulator::new(feet.len(), dt, cell.mu, start).with_torque_limits(&limits);
     let mut sample = plan.new_sample();
     let mut command = vec![0.0; nj];
     let mut applied = vec![0.0; nj];
@@ -143,7 +148,7 @@ fn replay(s: &Scenario, robot: &gripsweep::robot::LoadedRobot, cell: &Cell) -> P
             );
             // As cell.rs: the law's compute time is measured and kept (counted as harness).
             compute_us.push(tc.elapsed().as_secs_f64() * 1e6);
-            acc.control_step(status != LawStatus::Solved);
+            acc.control_step(status);
         }
         let t3 = Instant::now();
         law_s += (t3 - t2).as_secs_f64();

@@ -328,3 +328,71 @@ fn cone_program_respects_the_cones_and_reports_demands_beyond_friction() {
     assert_eq!(status, LawStatus::Infeasible);
     assert!(cone.last_slack > 1.0 && tau.iter().all(|t| t.is_finite()));
 }
+
+/// Statics at the contact point (textbook: a body at rest on an incline of angle θ needs
+/// ‖f_t‖/f_n = tan θ in total; a distribution with every foot force parallel to gravity has
+/// that ratio at every foot). With the contact where each sphere touches the ground
+/// (centre − r n, r the facts' radius), the cone program's evened-out ratios are tan θ at every
+/// foot, on the demo quadruped (four feet) and on the hexapod (six feet and five).
+#[test]
+fn cone_program_ratios_at_the_contact_point_equal_tan_theta_standing_on_slopes() {
+    let quad = robot();
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let hex = LoadedRobot::from_facts_file(&root.join("scenarios/robots/skitter.toml")).unwrap();
+    for r in [&quad, &hex] {
+        let nf = r.foot_frames().len();
+        let nj = r.model.n_joints();
+        let nv = r.model.nv();
+        let mut stances = vec![vec![true; nf]];
+        if nf > 4 {
+            // A middle leg lifted: the centre of mass stays inside the other five.
+            let mut s = vec![true; nf];
+            s[1] = false;
+            stances.push(s);
+        }
+        for deg in [0.0, 10.0, 20.0] {
+            let st = LawSettings {
+                foot_radius: r.facts.feet.radius,
+                ..settings_for(deg, 0.8)
+            };
+            let n = st.ground_normal;
+            let q = standing(r, deg);
+            for stance in &stances {
+                let zero = DVector::zeros(nv);
+                let mut law = ConeMargin::new(r.model.clone(), r.foot_frames(), &st);
+                let mut tau = vec![0.0; nj];
+                let mut status = LawStatus::Failed;
+                // The expected loads come from the previous step: a few steps settle them.
+                for _ in 0..10 {
+                    status = law.compute(
+                        &Observation { q: &q, v: &zero },
+                        &Target {
+                            q: &q,
+                            v: &zero,
+                            a: &zero,
+                            stance,
+                        },
+                        &mut tau,
+                    );
+                }
+                assert_eq!(status, LawStatus::Solved);
+                let tan = deg.to_radians().tan();
+                for (i, f) in law.predicted_forces().iter().enumerate() {
+                    if !stance[i] {
+                        continue;
+                    }
+                    let ratio = (f - n * f.dot(&n)).norm() / f.dot(&n);
+                    eprintln!(
+                        "{} {deg}° foot {i}: ratio {ratio:.5}, tan θ {tan:.5}",
+                        r.model.name
+                    );
+                    assert!(
+                        (ratio - tan).abs() < 0.01 * tan + 1e-3,
+                        "{} {deg}° foot {i}: ratio {ratio} vs tan θ {tan}",
+                        r.model.name
+                    );
+                }
+            }
+        }
+    }
+}

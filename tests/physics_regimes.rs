@@ -75,12 +75,18 @@ fn every_law_stands_and_crawls_for_ten_seconds_on_good_ground() {
             // No fall, no divergence, the whole 10 s. Tracking differs by law and is stated,
             // not bounded tightly: on three feet the minimum-torque law loads the light foot
             // beyond μ = 1 (its internal forces lower the torques, see tests/control_laws.rs)
-            // and slides, trading tracking for torque.
-            assert_eq!(
-                out.status,
-                CellStatus::Ok,
-                "{gait} {}: {}",
+            // and slides, trading tracking for torque — so far (165 mm RMS with the contact
+            // at the ground point, 133 mm at the sphere centre, when written) that the
+            // tracking test calls it `no-control` on the crawl: it stays up but is not ranked.
+            let drifted = gait == "crawl"
+                && c.controller == "id-lean"
+                && out.status == CellStatus::NoControl
+                && out.message.contains("off the plan");
+            assert!(
+                out.status == CellStatus::Ok || drifted,
+                "{gait} {}: {} {}",
                 c.controller,
+                out.status.name(),
                 out.message
             );
             assert!((out.metrics.sim_time_s - 10.0).abs() < 1e-6);

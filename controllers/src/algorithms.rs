@@ -288,6 +288,47 @@ pub fn frame_bias_acceleration(model: &Model, ws: &Workspace, frame: usize) -> V
     ws.o_m[f.body].rot * acc
 }
 
+/// J̇v of the ground contact point of a sphere foot whose centre is the frame's origin: the
+/// point c + d with d = −r n fixed in the world (r the radius, n the ground normal), so
+/// ṗ = v_c + ω × d and p̈ = a_c + α × d — no ω × (ω × d) term, because the contact point is not a
+/// material point of the sphere: it stays at c − r n while the sphere rolls (the rolling
+/// constraint of a sphere on a plane; e.g. Murray, Li & Sastry, "A Mathematical Introduction to
+/// Robotic Manipulation", CRC 1994, §5.2, rolling contact). Needs [`velocities_and_bias`].
+pub fn contact_point_bias_acceleration(
+    model: &Model,
+    ws: &Workspace,
+    frame: usize,
+    offset: &Vec3,
+) -> Vec3 {
+    let f = &model.frames[frame];
+    let alpha = ws.o_m[f.body].rot * ws.acc_bias[f.body].ang;
+    frame_bias_acceleration(model, ws, frame) + alpha.cross(offset)
+}
+
+/// World-aligned translational Jacobian of the point p = frame origin + `offset` (world),
+/// rigidly attached to the frame's body at this configuration, into rows `row0..row0+3` of
+/// `out`: J_p = J_o + [−offset]× J_ω, i.e. ṗ = v_o + ω × offset. `scratch` (6 × nv) holds the
+/// frame's full Jacobian.
+pub fn point_jacobian(
+    model: &Model,
+    ws: &Workspace,
+    frame: usize,
+    offset: &Vec3,
+    scratch: &mut DMatrix<f64>,
+    out: &mut DMatrix<f64>,
+    row0: usize,
+) {
+    frame_jacobian(model, ws, frame, scratch, 0, true);
+    for c in 0..out.ncols() {
+        let lin = Vec3::new(scratch[(0, c)], scratch[(1, c)], scratch[(2, c)]);
+        let ang = Vec3::new(scratch[(3, c)], scratch[(4, c)], scratch[(5, c)]);
+        let p = lin + ang.cross(offset);
+        for r in 0..3 {
+            out[(row0 + r, c)] = p[r];
+        }
+    }
+}
+
 /// World-aligned Jacobian of a frame (after forward kinematics): rows `row0..row0+3` of `out`
 /// get the translational part of the frame origin, and, when `angular` is set, rows
 /// `row0+3..row0+6` the rotational part. Columns outside the frame's chain are zeroed.

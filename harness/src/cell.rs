@@ -3,7 +3,10 @@
 //! stops the run.
 
 use crate::matrix::Cell;
-use crate::metrics::{CellMetrics, CellStatus, INFEASIBLE_SHARE, MetricsAccumulator};
+use crate::metrics::{
+    CellMetrics, CellStatus, INFEASIBLE_SHARE, MetricsAccumulator, law_share_text,
+    no_control_reason,
+};
 use crate::planner::{Plan, PlanSample};
 use crate::plant::actuator::Actuator;
 use crate::plant::terrain::{Slope, Terrain};
@@ -163,6 +166,7 @@ fn error_outcome(message: String) -> CellOutcome {
             slip_mean_mm: f64::NAN,
             joint_rms_deg: f64::NAN,
             friction_over_share: f64::NAN,
+            stance_off_ground_share: f64::NAN,
             ..CellMetrics::default()
         },
         compute_median_us: f64::NAN,
@@ -221,7 +225,10 @@ fn simulate(
     plant.set_state(&q, &v);
 
     let law_model = controller_model(model, cell.mass_scale, cell.com_shift_mm);
-    let settings_law = law_settings(&s.laws, &slope, cell.mu, s.mu_estimate_scale);
+    let settings_law = LawSettings {
+        foot_radius: robot.facts.feet.radius,
+        ..law_settings(&s.laws, &slope, cell.mu, s.mu_estimate_scale)
+    };
     let mut law: Box<dyn ControlLaw> =
         match build_law(&cell.controller, law_model, feet.clone(), &settings_law) {
             Ok(l) => l,
@@ -233,7 +240,9 @@ fn simulate(
     let delay_steps = (s.noise.delay / dt).round() as usize;
     let uphill = slope.uphill();
     let start = Vec3::new(q[0], q[1], q[2]);
-    let mut acc = MetricsAccumulator::new(feet.len(), dt, cell.mu, start);
+    let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
+    let mut acc =
+        MetricsAccumulator::new(feet.len(), dt, cell.mu, start).with_torque_limits(&limits);
     let mut sample: PlanSample = plan.new_sample();
     let mut reached: PlanSample = plan.new_sample();
     let mut command = vec![0.0; nj];
@@ -289,7 +298,7 @@ fn simulate(
                 &mut command,
             );
             compute_us.push(t0.elapsed().as_secs_f64() * 1e6);
-            acc.control_step(last_law != LawStatus::Solved);
+            acc.control_step(last_law);
             if command.iter().any(|x| !x.is_finite()) {
                 status = CellStatus::Diverged;
                 message = format!("the law returned a non-finite torque at t = {t:.3} s");
@@ -379,12 +388,21 @@ fn simulate(
     }
     let end = Vec3::new(q[0], q[1], q[2]);
     let metrics = acc.finish(&end, &uphill, plan.planned_progress(), nj);
-    if status == CellStatus::Ok && metrics.law_trouble_share > INFEASIBLE_SHARE {
-        status = CellStatus::Infeasible;
-        message = format!(
-            "the law reported trouble on {:.0} % of control steps",
-            100.0 * metrics.law_trouble_share
-        );
+    // Judge a run that stayed up: first whether the law controlled the robot at all, then
+    // whether it met its own constraints (README, "Statuses").
+    if status == CellStatus::Ok {
+        if let Some(reason) = no_control_reason(&metrics, s.body_height) {
+            status = CellStatus::NoControl;
+            message = format!("{reason} ({})", law_share_text(&metrics));
+        } else if metrics.law_trouble_share > INFEASIBLE_SHARE {
+            status = CellStatus::Infeasible;
+            message = format!(
+                "the law reported trouble on {:.0} % of control steps (test: > {:.0} %): {}",
+                100.0 * metrics.law_trouble_share,
+                100.0 * INFEASIBLE_SHARE,
+                law_share_text(&metrics)
+            );
+        }
     }
     compute_us.sort_by(|a, b| a.total_cmp(b));
     let pick = |p: f64| {

@@ -19,6 +19,14 @@ Pinocchio stores a continuous joint as a (cos, sin) pair; the fixture writes its
 (atan2(sin, cos)), so q has exactly one entry per joint. Vectors follow Pinocchio's joint order,
 listed in each robot's "joint_names"; the Rust side permutes by name.
 
+For each robot standing in its nominal posture (the facts file's [nominal]) with the trunk
+parallel to a slope of 0, 10 and 20 degrees, the fixture also holds, per sphere foot, the
+LOCAL_WORLD_ALIGNED Jacobian of the point where the sphere touches the ground (an operational
+frame placed on the foot frame's joint at offset -r n from the sphere centre, r the facts'
+foot radius, n the slope normal), and the contact forces of the minimum-torque statics at those
+points: min |tau|^2 subject to S^T tau + J_c^T lambda = g(q) (zero velocity and acceleration),
+solved from its KKT system, for all feet in stance and for all feet but the first.
+
 Before generating or checking, every link's inertia in the URDFs is checked for physical
 validity, independently of Pinocchio (a plain XML read).
 """
@@ -27,6 +35,7 @@ import argparse
 import json
 import math
 import sys
+import tomllib
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
@@ -36,6 +45,9 @@ import pinocchio as pin
 ROOT = Path(__file__).resolve().parents[2]
 FIXTURE = ROOT / "tests" / "reference" / "pinocchio_fixture.json"
 ROBOTS = ["scenarios/robots/brindle.urdf", "scenarios/robots/skitter.urdf"]
+FACTS = {"scenarios/robots/brindle.urdf": "scenarios/robots/brindle.toml",
+         "scenarios/robots/skitter.urdf": "scenarios/robots/skitter.toml"}
+SLOPES_DEG = [0.0, 10.0, 20.0]
 SEED = 7411
 STATES_PER_ROBOT = 20
 RTOL = 1e-12  # relative to the larger magnitude of the two numbers
@@ -141,6 +153,72 @@ def state_values(model, data, frames, q, q_ours, v, a):
     }
 
 
+def standing_contacts(model, facts):
+    """Contact-point Jacobians and minimum-torque statics forces standing on each slope."""
+    radius = float(facts["feet"]["radius"])
+    feet = list(facts["feet"]["frames"])
+    nominal = facts.get("nominal", {})
+    out = []
+    for deg in SLOPES_DEG:
+        th = math.radians(deg)
+        normal = np.array([-math.sin(th), 0.0, math.cos(th)])
+        q = pin.neutral(model)
+        q[0:3] = normal * 0.3
+        # Trunk parallel to the slope: rotation about y by -theta (x axis uphill).
+        q[3:7] = pin.Quaternion(pin.utils.rotate("y", -th)).coeffs()
+        q_ours = list(q[0:7])
+        for jid in range(2, model.njoints):
+            j = model.joints[jid]
+            angle = float(nominal.get(model.names[jid], 0.0))
+            if j.nq == 2:
+                q[j.idx_q:j.idx_q + 2] = (math.cos(angle), math.sin(angle))
+            else:
+                q[j.idx_q] = angle
+            q_ours.append(angle)
+        # Operational frames at the contact points, on a copy of the model.
+        m2 = pin.Model(model)
+        d2 = m2.createData()
+        pin.framesForwardKinematics(m2, d2, q)
+        ids = []
+        for name in feet:
+            fid = m2.getFrameId(name)
+            f = m2.frames[fid]
+            offset_local = d2.oMf[fid].rotation.T @ (-radius * normal)
+            placement = f.placement * pin.SE3(np.eye(3), offset_local)
+            ids.append(m2.addFrame(pin.Frame(name + "_ground", f.parentJoint, fid, placement,
+                                             pin.FrameType.OP_FRAME)))
+        d2 = m2.createData()
+        pin.computeJointJacobians(m2, d2, q)
+        pin.updateFramePlacements(m2, d2)
+        jacs = [pin.getFrameJacobian(m2, d2, fid, WLA)[:3] for fid in ids]
+        g = pin.computeGeneralizedGravity(m2, d2, q)
+        nv, nj = model.nv, model.nv - 6
+        stances = {"all": list(range(len(feet))), "all_but_first": list(range(1, len(feet)))}
+        forces = {}
+        for key, stance in stances.items():
+            k = len(stance)
+            jc = np.vstack([jacs[i] for i in stance])          # 3k x nv
+            a = np.hstack([np.vstack([np.zeros((6, nj)), np.eye(nj)]), jc.T])  # nv x (nj + 3k)
+            w = np.zeros((nj + 3 * k, nj + 3 * k))
+            w[:nj, :nj] = np.eye(nj)
+            kkt = np.block([[w, a.T], [a, np.zeros((nv, nv))]])
+            rhs = np.concatenate([np.zeros(nj + 3 * k), g])
+            x = np.linalg.solve(kkt, rhs)
+            lam = x[nj:nj + 3 * k].reshape(k, 3)
+            assert np.allclose(a @ x[:nj + 3 * k], g, atol=1e-9)
+            per_foot = [[0.0, 0.0, 0.0] for _ in feet]
+            for c, i in enumerate(stance):
+                per_foot[i] = lam[c].tolist()
+            forces[key] = per_foot
+        out.append({
+            "slope_deg": deg, "normal": normal.tolist(), "radius": radius, "q": q_ours,
+            "points": [d2.oMf[fid].translation.tolist() for fid in ids],
+            "jacobians": [j.tolist() for j in jacs],
+            "min_torque_forces": forces,
+        })
+    return out
+
+
 def generate():
     rng = np.random.default_rng(SEED)
     robots = []
@@ -168,10 +246,12 @@ def generate():
         for _ in range(STATES_PER_ROBOT):
             q, q_ours, v, a = random_state(model, rng, unbounded)
             states.append(state_values(model, data, frames, q, q_ours, v, a))
+        facts = tomllib.loads((ROOT / FACTS[rel]).read_text())
         robots.append({
             "urdf": rel,
             "joint_names": list(model.names)[2:],
             "total_mass": total_mass,
+            "standing": standing_contacts(model, facts),
             "states": states,
         })
     return {

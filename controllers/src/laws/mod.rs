@@ -93,6 +93,10 @@ pub struct LawSettings {
     pub min_normal_force: f64,
     /// Outward ground normal the controllers assume (world).
     pub ground_normal: Vec3,
+    /// Radius of the sphere feet (the robot facts' `feet.radius`), m: the model-based laws put
+    /// each stance foot's contact at centre − radius · n, where the sphere touches the ground.
+    /// 0 puts it at the foot frame (the sphere centre).
+    pub foot_radius: f64,
 }
 
 impl Default for LawSettings {
@@ -119,6 +123,7 @@ impl Default for LawSettings {
             cone_margin: 0.1,
             min_normal_force: 2.0,
             ground_normal: Vec3::z(),
+            foot_radius: 0.0,
         }
     }
 }

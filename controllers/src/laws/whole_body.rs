@@ -10,7 +10,7 @@
 
 use super::{LawSettings, LawStatus, Observation, Target};
 use crate::algorithms::{
-    Workspace, crba_after_fk, forward_kinematics, frame_bias_acceleration, frame_jacobian,
+    Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics, point_jacobian,
     rnea_after_fk, velocities_and_bias,
 };
 use crate::configuration::difference_into;
@@ -33,7 +33,11 @@ pub struct WholeBody {
     pub stance: Vec<usize>,
     pub k: usize,
     jac3: DMatrix<f64>,
-    /// J_cᵀ of the stance feet (nv × 3k, world-aligned translational rows of each foot).
+    jac6: DMatrix<f64>,
+    /// Offset from each foot frame (the sphere centre) to its ground contact, −r n (world).
+    contact_offset: Vec3,
+    /// J_cᵀ of the stance feet (nv × 3k, world-aligned translational rows of each foot's
+    /// ground contact point, centre − r n).
     pub jct: DMatrix<f64>,
     /// After the QR: R in the top 3k × 3k triangle.
     qr: DMatrix<f64>,
@@ -82,6 +86,8 @@ impl WholeBody {
             stance: Vec::with_capacity(nf),
             k: 0,
             jac3: DMatrix::zeros(3, nv),
+            jac6: DMatrix::zeros(6, nv),
+            contact_offset: -settings.ground_normal.normalize() * settings.foot_radius,
             jct: DMatrix::zeros(nv, 3 * nf),
             qr: DMatrix::zeros(nv, 3 * nf),
             q: DMatrix::zeros(nv, nv),
@@ -144,13 +150,16 @@ impl WholeBody {
         let k = self.k;
         for (c, &i) in self.stance.iter().enumerate() {
             let frame = self.feet[i];
-            frame_jacobian(model, ws, frame, &mut self.jac3, 0, false);
+            // Contact where the sphere touches the ground, not at its centre: forces there
+            // carry no moment about the contact, and on a slope the lever arms differ.
+            let d = self.contact_offset;
+            point_jacobian(model, ws, frame, &d, &mut self.jac6, &mut self.jac3, 0);
             for r in 0..3 {
                 for col in 0..self.nv {
                     self.jct[(col, 3 * c + r)] = self.jac3[(r, col)];
                 }
             }
-            let b = frame_bias_acceleration(model, ws, frame);
+            let b = contact_point_bias_acceleration(model, ws, frame, &d);
             for r in 0..3 {
                 self.jdot_v[3 * c + r] = b[r];
             }

@@ -21,13 +21,16 @@ pub enum Status {
     Fell,
     Diverged,
     Infeasible,
+    /// Stayed up but the law did not control the robot (torque limits, tracking, oscillation).
+    NoControl,
     Error,
 }
 
 impl Status {
-    pub const ALL: [Status; 5] = [
+    pub const ALL: [Status; 6] = [
         Status::Ok,
         Status::Infeasible,
+        Status::NoControl,
         Status::Fell,
         Status::Diverged,
         Status::Error,
@@ -39,6 +42,7 @@ impl Status {
             Status::Fell => "fell",
             Status::Diverged => "diverged",
             Status::Infeasible => "infeasible",
+            Status::NoControl => "no-control",
             Status::Error => "error",
         }
     }
@@ -47,12 +51,18 @@ impl Status {
         Status::ALL.into_iter().find(|st| st.name() == s)
     }
 
-    /// Runs that went the whole planned duration. An infeasible law still drove the robot to
-    /// the end (with its closest feasible command), so its slip and tracking are comparable;
-    /// a run that fell or diverged stopped early and its averages cover a different, shorter
-    /// motion, so they would flatter or punish the law arbitrarily.
+    /// Runs whose numbers enter means and rankings: only those that held and whose law
+    /// controlled the robot and met its constraints. An infeasible or no-control run went the
+    /// whole duration, but what it measures is the law giving way, not the law; a run that
+    /// fell or diverged stopped early and its averages cover a different, shorter motion.
+    /// Every other outcome is counted and shown beside its condition, never ranked.
     pub fn counts_for_means(self) -> bool {
-        matches!(self, Status::Ok | Status::Infeasible)
+        matches!(self, Status::Ok)
+    }
+
+    /// Runs that stayed up to the end of the plan (whatever their law did).
+    pub fn held(self) -> bool {
+        matches!(self, Status::Ok | Status::Infeasible | Status::NoControl)
     }
 
     /// Runs the robot did not survive.
@@ -81,10 +91,16 @@ pub enum Metric {
     FrictionUseMax,
     FrictionOverShare,
     LawTroubleShare,
+    LawSolvedShare,
+    LawInfeasibleShare,
+    LawUnderactuatedShare,
+    LawFailedShare,
+    StanceOffGroundShare,
+    TorqueFlipRate,
 }
 
 impl Metric {
-    pub const ALL: [Metric; 17] = [
+    pub const ALL: [Metric; 23] = [
         Metric::SimTime,
         Metric::SlipMean,
         Metric::SlipMax,
@@ -102,6 +118,12 @@ impl Metric {
         Metric::FrictionUseMax,
         Metric::FrictionOverShare,
         Metric::LawTroubleShare,
+        Metric::LawSolvedShare,
+        Metric::LawInfeasibleShare,
+        Metric::LawUnderactuatedShare,
+        Metric::LawFailedShare,
+        Metric::StanceOffGroundShare,
+        Metric::TorqueFlipRate,
     ];
 
     /// Column name in `cells.csv` (and metric name in `summary.csv`).
@@ -124,7 +146,27 @@ impl Metric {
             Metric::FrictionUseMax => "friction_use_max",
             Metric::FrictionOverShare => "friction_over_share",
             Metric::LawTroubleShare => "law_trouble_share",
+            Metric::LawSolvedShare => "law_solved_share",
+            Metric::LawInfeasibleShare => "law_infeasible_share",
+            Metric::LawUnderactuatedShare => "law_underactuated_share",
+            Metric::LawFailedShare => "law_failed_share",
+            Metric::StanceOffGroundShare => "stance_off_ground_share",
+            Metric::TorqueFlipRate => "torque_flip_rate_hz",
         }
+    }
+
+    /// Columns added after the first release of `cells.csv` (law-status shares, off-ground
+    /// share, torque reversals): a run folder written before them still reads, with NaN.
+    fn is_optional(self) -> bool {
+        matches!(
+            self,
+            Metric::LawSolvedShare
+                | Metric::LawInfeasibleShare
+                | Metric::LawUnderactuatedShare
+                | Metric::LawFailedShare
+                | Metric::StanceOffGroundShare
+                | Metric::TorqueFlipRate
+        )
     }
 
     /// Whether the column holds a count rather than a measurement.
@@ -149,6 +191,10 @@ pub struct Cell {
     pub seed: u64,
     pub status: Status,
     pub message: String,
+    /// Whether the cell's condition is beyond the plan's physical limit (μ below the plan's
+    /// μ_required or a torque share above 1): shown, never ranked, kept out of the means.
+    /// Set by [`beyond_plan_limit`] when the run is read.
+    pub beyond_plan_limit: bool,
     metrics: [f64; Metric::ALL.len()],
 }
 
@@ -246,7 +292,10 @@ pub fn read_run(dir: &Path) -> Result<Run, String> {
         ));
     }
     let manifest = read_manifest(&dir.join(MANIFEST_FILE))?;
-    let cells = read_cells(&dir.join(CELLS_FILE))?;
+    let mut cells = read_cells(&dir.join(CELLS_FILE))?;
+    for c in &mut cells {
+        c.beyond_plan_limit = beyond_plan_limit(&manifest, c);
+    }
     let timing_path = dir.join(TIMING_FILE);
     let (timing, timing_unmatched) = if timing_path.exists() {
         let known: HashSet<&str> = cells.iter().map(|c| c.id.as_str()).collect();
@@ -275,6 +324,15 @@ pub fn read_run(dir: &Path) -> Result<Run, String> {
         timing_unmatched,
         onset,
     })
+}
+
+/// HOOK (issue 10, parts 1–2: the plan's friction limit). Whether a cell's condition is beyond
+/// what its plan allows any law to hold: μ below the plan's μ_required for the cell's slope, or
+/// a torque share above 1. The single place the report asks; every table that ranks or pools
+/// excludes such cells ([`Cell::beyond_plan_limit`]). Until the manifest carries μ_required
+/// per slope, no condition is beyond the limit.
+pub fn beyond_plan_limit(_manifest: &Manifest, _cell: &Cell) -> bool {
+    false
 }
 
 /// Reads `manifest.json`; only the three fields the report needs are required.
@@ -372,7 +430,12 @@ const CELL_KEY_COLUMNS: [&str; 13] = [
 /// Reads `cells.csv` and returns the cells in matrix order.
 pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
     let mut required: Vec<&str> = CELL_KEY_COLUMNS.to_vec();
-    required.extend(Metric::ALL.iter().map(|m| m.column()));
+    required.extend(
+        Metric::ALL
+            .iter()
+            .filter(|m| !m.is_optional())
+            .map(|m| m.column()),
+    );
     let table = CsvTable::read(path, &required)?;
     let mut cells = Vec::with_capacity(table.rows.len());
     let mut seen_id: HashMap<String, usize> = HashMap::new();
@@ -393,12 +456,14 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
         let status = Status::parse(status_text).ok_or_else(|| {
             row.error(
                 "status",
-                &format!("unknown status '{status_text}'; expected one of ok, fell, diverged, infeasible, error"),
+                &format!("unknown status '{status_text}'; expected one of ok, infeasible, no-control, fell, diverged, error"),
             )
         })?;
         let mut metrics = [f64::NAN; Metric::ALL.len()];
         for m in Metric::ALL {
-            metrics[m as usize] = if m.is_integer() {
+            metrics[m as usize] = if m.is_optional() && !table.columns.contains_key(m.column()) {
+                f64::NAN
+            } else if m.is_integer() {
                 row.integer(m.column())? as f64
             } else {
                 row.number(m.column())?
@@ -418,6 +483,7 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
             seed: row.integer("seed")?,
             status,
             message: row.text("message")?.to_string(),
+            beyond_plan_limit: false,
             metrics,
         });
     }

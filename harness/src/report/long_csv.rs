@@ -113,7 +113,7 @@ impl Row {
 }
 
 /// The mark of controller `c` under a slip verdict: `lowest`, `tied`, `only`, or blank
-/// (`unranked` is set by the caller for a law that fell in the group).
+/// (`unranked` is set by the caller for a law with a run in the group that did not end ok).
 fn mark(v: Option<&Verdict>, c: usize) -> &'static str {
     match v {
         Some(Verdict::Lowest { ctrl, .. }) if *ctrl == c => "lowest",
@@ -132,6 +132,9 @@ fn pivot_rows(out: &mut Vec<Row>, study: &Study, p: &Pivot) {
             if let Some((a, v)) = p.fixed {
                 r = r.key(study, a, v);
             }
+            for &(a, v) in &p.extra_fixed {
+                r = r.key(study, a, v);
+            }
             r.mark = if row.unranked.contains(&c) {
                 "unranked"
             } else {
@@ -147,6 +150,7 @@ pub fn write(path: &Path, study: &Study, computed: &Computed) -> Result<(), Stri
     for p in computed
         .slip_by_friction
         .iter()
+        .chain(computed.slip_by_regime.iter().flatten())
         .chain(&computed.tracking_by_friction)
         .chain([
             &computed.rate_slip,
@@ -204,7 +208,7 @@ pub fn write(path: &Path, study: &Study, computed: &Computed) -> Result<(), Stri
                 r = r.key(study, a, cond.idx[a as usize]);
             }
             let mut r = r.entry(e);
-            r.mark = if e.fell > 0 && e.stat.is_some() {
+            r.mark = if e.stat.is_some() && !e.rankable() {
                 "unranked"
             } else {
                 mark(Some(&cond.verdict), c)

@@ -48,6 +48,15 @@ fn entry_text(e: &Entry, scale: f64, bold: bool) -> String {
     if e.fell > 0 {
         let _ = write!(t, " · {} fell", e.fell);
     }
+    // Every other outcome beside the number, never in it.
+    for (k, st) in Status::ALL.iter().enumerate() {
+        if !matches!(st, Status::Ok) && !st.is_fall() && e.outcomes[k] > 0 {
+            let _ = write!(t, " · {} {}", e.outcomes[k], st.name());
+        }
+    }
+    if e.beyond > 0 {
+        let _ = write!(t, " · {} beyond the plan's limit", e.beyond);
+    }
     t
 }
 
@@ -71,12 +80,12 @@ fn verdict_text(study: &Study, v: &Verdict) -> String {
             num(*margin)
         ),
         Verdict::Tied(ids) => format!(
-            "tie: {} (within {} mm)",
+            "tie: {} (within {} mm or not shown by the paired test)",
             names(study, ids),
             num(study.floor)
         ),
         Verdict::Only(c) => format!(
-            "{} (the only law with runs that held)",
+            "{} (the only law whose runs all ended ok)",
             cell(&study.controllers()[*c])
         ),
         Verdict::NoData => "—".to_string(),
@@ -131,7 +140,7 @@ fn pivot_table(out: &mut String, study: &Study, p: &Pivot) {
             if !row.unranked.is_empty() {
                 let _ = write!(
                     text,
-                    " · not ranked (fell): {}",
+                    " · not ranked (not every run ok): {}",
                     names(study, &row.unranked)
                 );
             }
@@ -206,26 +215,30 @@ then the seeds, so each seed counts once. With {MIN_SEEDS_FOR_CI} or more seeds 
 `mean ± h`, where h is the half-width of its 95 % confidence interval (Student t over the \
 per-seed means, t(0.975, seeds − 1) · s / √seeds); with fewer seeds it reads `mean (n=seeds)`. \
 A table pools every axis it does not name: the slip-by-friction table of one slope, for \
-example, pools control rates, actuator models, model errors and sensor noise. Only runs that \
-went the whole planned motion count towards slip, tracking and effort: status `ok`, and \
-`infeasible` (the law could not meet its constraints but kept commanding its closest feasible \
-torques). Runs that fell or diverged stopped early, so their averages describe a different, \
-shorter motion: they are left out of the means and counted instead, as `· k fell` beside the \
-mean (falls and divergences together) and in full under *Run outcomes*. Runs with status \
-`error` are only counted there. A metric the runner could not define (NaN) is left out of its \
+example, pools control rates, actuator models, model errors and sensor noise. Only runs with \
+status `ok` — the robot held up to the end and the law controlled it and met its constraints — \
+count towards slip, tracking and effort. Every other outcome is counted beside the number and \
+never averaged in: `· k fell` (falls and divergences: the run stopped early), `· k no-control` \
+(held up but the law did not control the robot: torque limits, tracking or oscillation, see the \
+README), `· k infeasible` (the law could not meet its constraints), `· k error`, and \
+`· k beyond the plan's limit` (a condition no law can hold with this plan). A metric the runner \
+could not define (NaN) is left out of its \
 own mean. `—`: no run of the group held; `·`: the group has no runs.\n"
     );
     let _ = writeln!(
         out,
-        "Slip is the path of each stance foot's contact point along the ground, in mm per stance \
-phase. **Slip floor of this run: {floor} mm per stance phase** — the apparent slip of feet that \
-do not move, measured for this run's plant settings. In every slip table the lowest mean of a \
-row is in bold and the last column names its law, but only when every other law's mean lies \
-more than the floor above it. Laws whose means lie within the floor of the lowest (difference \
-≤ {floor} mm) are all in bold and reported as a tie: a difference the plant's own jitter can \
-produce is no evidence that one law slips less. A law that fell or diverged in any run of a row \
-is shown but not ranked in that row (listed as *not ranked (fell)*): its mean covers only the \
-runs it survived, usually the easier ones.\n"
+        "Slip is how far each planned-stance foot's ground contact point moved along the ground from \
+where its stance phase began (rolling excluded, touching or not), in mm per stance phase. \
+**Slip floor of this run: {floor} mm per stance phase** — the apparent slip of feet that do not \
+move, measured for this run's plant settings. In every slip table the lowest mean of a row is in \
+bold and the last column names its law, but only when every other law's mean lies more than the \
+floor above it *and* a paired t-test across seeds (per-seed means paired by seed, two-sided, \
+α = {alpha}) finds the difference; every other law is in bold too and reported as a tie. With \
+fewer than two seeds no difference can be tested, so every row is a tie. The t-test is used \
+because with three seeds a sign or signed-rank test cannot reach α = 0.05. A law with any run \
+in a row that did not end `ok`, or beyond the plan's limit, is shown but not ranked in that row \
+(listed as *not ranked*): its mean covers only part of the runs, usually the easier ones.\n",
+        alpha = super::tables::PAIRED_ALPHA
     );
 
     plan_limit_section(&mut out, study);
@@ -236,7 +249,7 @@ runs it survived, usually the easier ones.\n"
         "Mean slip per stance phase (mm) by static friction coefficient μ (rows) and controller \
 (columns), one table per slope.\n\n",
     );
-    for p in &computed.slip_by_friction {
+    for (s_idx, p) in computed.slip_by_friction.iter().enumerate() {
         if let Some((a, i)) = p.fixed {
             let t = study.axes.value_text(a, i);
             let mut chars = t.chars();
@@ -247,6 +260,23 @@ runs it survived, usually the easier ones.\n"
             let _ = writeln!(out, "### {title}\n");
         }
         pivot_table(&mut out, study, p);
+        if let Some(split) = computed.slip_by_regime.get(s_idx).filter(|v| !v.is_empty()) {
+            out.push_str(
+                "Pooling control rates and actuator models changes the answer on this slope (some \
+row's lowest or tied laws differ in some regime), so here is the table per control rate and \
+actuator model:\n\n",
+            );
+            for sp in split {
+                let title: Vec<String> = sp
+                    .fixed
+                    .iter()
+                    .chain(&sp.extra_fixed)
+                    .map(|(a, v)| study.axes.value_text(*a, *v))
+                    .collect();
+                let _ = writeln!(out, "#### {}\n", capitalise(&title.join(", ")));
+                pivot_table(&mut out, study, sp);
+            }
+        }
     }
 
     // ---- rate and actuator studies ------------------------------------------------------
@@ -270,9 +300,23 @@ runs it survived, usually the easier ones.\n"
         let _ = writeln!(out, "## {heading}\n");
         let _ = writeln!(
             out,
-            "Slip and base tracking by {} (rows) and controller, pooled over every other axis.\n",
+            "Slip and base tracking by {} (rows) and controller. Each law is compared with \
+itself: its column averages only the conditions (every other axis fixed, all seeds) in which \
+every one of its runs at every {} ended `ok`, so each row of a column covers the same \
+conditions; columns cover different conditions and are not ranked against each other. The \
+counts beside a number cover all the law's runs at that {}.\n",
+            axis.label(),
+            axis.label(),
             axis.label()
         );
+        if let Some(matched) = &slip.matched {
+            let parts: Vec<String> = matched
+                .iter()
+                .enumerate()
+                .map(|(c, (m, t))| format!("{} {m} of {t}", cell(&study.controllers()[c])))
+                .collect();
+            let _ = writeln!(out, "Conditions compared: {}.\n", parts.join(", "));
+        }
         if study.axes.len(axis) < 2 {
             let _ = writeln!(
                 out,
@@ -541,11 +585,12 @@ fn where_each_law_wins(out: &mut String, study: &Study, computed: &Computed) {
     let _ = writeln!(
         out,
         "A condition is one combination of {axis_list}, pooled over seeds. A law *wins* a \
-condition when its mean slip is below every other law's by more than the slip floor ({floor} mm); \
-laws within the floor of the lowest *tie*. A law that fell or diverged in any run of a condition \
-is not ranked there, since its mean would cover only the runs it survived. Of {} conditions, \
-{decisive} had a winner, {tied} a tie, {only} only one law that held without a fall, and {} \
-none.\n",
+condition when its mean slip is below every other law's by more than the slip floor ({floor} mm) \
+and a paired t-test across seeds finds the difference; otherwise the laws *tie*. Only laws whose \
+every run of a condition ended `ok` are ranked there (a run that fell, did not control the \
+robot or was infeasible is counted, never a winner), and no law in a condition beyond the \
+plan's limit. Of {} conditions, {decisive} had a winner, {tied} a tie, {only} only one law \
+whose runs all ended ok, and {} none.\n",
         conds.len(),
         conds.len() - decisive - tied - only
     );

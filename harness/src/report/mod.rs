@@ -54,6 +54,8 @@ pub struct ReportSummary {
 /// Every table of the report, computed once and read by the three writers.
 pub(crate) struct Computed {
     pub slip_by_friction: Vec<Pivot>,
+    /// Per slope: the per-(rate, actuator) slip tables where pooling changes the answer.
+    pub slip_by_regime: Vec<Vec<Pivot>>,
     pub tracking_by_friction: Vec<Pivot>,
     pub rate_slip: Pivot,
     pub rate_tracking: Pivot,
@@ -63,7 +65,7 @@ pub(crate) struct Computed {
     pub per_controller: Vec<(Measure, Vec<Entry>)>,
     pub conditions: Vec<Condition>,
     pub records: Vec<LawRecord>,
-    pub statuses: Vec<[usize; 5]>,
+    pub statuses: Vec<[usize; input::Status::ALL.len()]>,
     pub compute: Option<Vec<ComputeRow>>,
     pub onset: Option<Vec<OnsetTable>>,
 }
@@ -78,20 +80,18 @@ impl Computed {
             .map(|m| (*m, (0..n_ctrl).map(|c| study.entry(c, &[], *m)).collect()))
             .collect();
         let conditions = study.conditions();
+        let slip_by_friction = study.slip_by_friction();
+        let slip_by_regime = study.slip_by_regime(&slip_by_friction);
         let records = study.records(&conditions);
         Computed {
-            slip_by_friction: study.slip_by_friction(),
+            slip_by_friction,
+            slip_by_regime,
             tracking_by_friction: study.tracking_by_friction(),
-            rate_slip: study.pivot("rate_study", None, Axis::Rate, tables::SLIP, true),
-            rate_tracking: study.pivot("rate_study", None, Axis::Rate, tables::BASE_POS, false),
-            actuator_slip: study.pivot("actuator_study", None, Axis::Actuator, tables::SLIP, true),
-            actuator_tracking: study.pivot(
-                "actuator_study",
-                None,
-                Axis::Actuator,
-                tables::BASE_POS,
-                false,
-            ),
+            // Each law against itself, within the conditions where every compared run held.
+            rate_slip: study.within_law("rate_study", Axis::Rate, tables::SLIP),
+            rate_tracking: study.within_law("rate_study", Axis::Rate, tables::BASE_POS),
+            actuator_slip: study.within_law("actuator_study", Axis::Actuator, tables::SLIP),
+            actuator_tracking: study.within_law("actuator_study", Axis::Actuator, tables::BASE_POS),
             per_controller,
             conditions,
             records,

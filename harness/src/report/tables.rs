@@ -4,10 +4,10 @@
 //!
 //! Nothing here formats text; `markdown.rs`, `long_csv.rs` and `plots.rs` read these values.
 
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
 
 use super::input::{Cell, Metric, OnsetRow, Run, Status};
-use super::stats::{Stat, over_seeds};
+use super::stats::{Stat, over_seeds, t_975};
 
 /// The matrix axes a condition is made of (every axis but the seed and the controller).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
@@ -214,6 +214,12 @@ impl Measure {
                 Metric::FrictionUseMax => "peak friction use ‖f_t‖/(μ f_n)",
                 Metric::FrictionOverShare => "stance time at the friction limit (%)",
                 Metric::LawTroubleShare => "steps the law did not solve (%)",
+                Metric::LawSolvedShare => "steps the law solved (%)",
+                Metric::LawInfeasibleShare => "steps the law found infeasible (%)",
+                Metric::LawUnderactuatedShare => "steps the law found underactuated (%)",
+                Metric::LawFailedShare => "steps the law failed (%)",
+                Metric::StanceOffGroundShare => "planned stance time off the ground (%)",
+                Metric::TorqueFlipRate => "torque reversals per second, worst joint",
             },
             Measure::ProgressShare => "progress made (% of plan)",
         }
@@ -223,7 +229,14 @@ impl Measure {
     pub fn display_scale(self) -> f64 {
         match self {
             Measure::Plain(
-                Metric::TorqueLimitShare | Metric::FrictionOverShare | Metric::LawTroubleShare,
+                Metric::TorqueLimitShare
+                | Metric::FrictionOverShare
+                | Metric::LawTroubleShare
+                | Metric::LawSolvedShare
+                | Metric::LawInfeasibleShare
+                | Metric::LawUnderactuatedShare
+                | Metric::LawFailedShare
+                | Metric::StanceOffGroundShare,
             )
             | Measure::ProgressShare => 100.0,
             Measure::Plain(_) => 1.0,
@@ -247,9 +260,10 @@ pub const TRACKING_EFFORT: [Measure; 8] = [
 ];
 
 /// Contact and law-health columns of the per-controller table.
-pub const CONTACT_HEALTH: [Measure; 5] = [
+pub const CONTACT_HEALTH: [Measure; 6] = [
     Measure::Plain(Metric::SlipMax),
     Measure::Plain(Metric::SlipTotal),
+    Measure::Plain(Metric::StanceOffGroundShare),
     Measure::Plain(Metric::FrictionUseMax),
     Measure::Plain(Metric::FrictionOverShare),
     Measure::Plain(Metric::LawTroubleShare),
@@ -258,34 +272,130 @@ pub const CONTACT_HEALTH: [Measure; 5] = [
 /// One table entry: a group of cells of one controller.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Entry {
-    /// Over the group's ok/infeasible cells; `None` when it has none with a defined value.
+    /// Over the group's cells that count (status `ok`, condition within the plan's limit);
+    /// `None` when it has none with a defined value.
     pub stat: Option<Stat>,
     /// Cells of the group that fell or diverged (not in the mean).
     pub fell: usize,
+    /// Cells of the group per status, in [`Status::ALL`] order (all of them, counted).
+    pub outcomes: [usize; Status::ALL.len()],
+    /// Cells of the group in a condition beyond the plan's limit (not in the mean).
+    pub beyond: usize,
     /// All cells of the group, whatever their status.
     pub cells: usize,
 }
 
 impl Entry {
     fn of<'a>(cells: impl Iterator<Item = &'a Cell>, measure: Measure) -> Entry {
+        let cells: Vec<&Cell> = cells.collect();
+        Entry::of_split(cells.iter().copied(), cells.iter().copied(), measure)
+    }
+
+    /// The mean over `counted` (those of them that count), the outcome counts over `all`.
+    fn of_split<'a>(
+        all: impl Iterator<Item = &'a Cell>,
+        counted: impl Iterator<Item = &'a Cell>,
+        measure: Measure,
+    ) -> Entry {
         let mut fell = 0;
         let mut count = 0;
-        let mut samples = Vec::new();
-        for c in cells {
+        let mut beyond = 0;
+        let mut outcomes = [0usize; Status::ALL.len()];
+        for c in all {
             count += 1;
             if c.status.is_fall() {
                 fell += 1;
             }
-            if c.status.counts_for_means() {
-                samples.push((c.seed, measure.value(c)));
+            if c.beyond_plan_limit {
+                beyond += 1;
+            }
+            if let Some(k) = Status::ALL.iter().position(|s| *s == c.status) {
+                outcomes[k] += 1;
             }
         }
         Entry {
-            stat: over_seeds(samples),
+            stat: over_seeds(seed_samples(counted, measure)),
             fell,
+            outcomes,
+            beyond,
             cells: count,
         }
     }
+
+    /// Cells of the group that did not end `ok` (whatever else happened).
+    pub fn not_ok(&self) -> usize {
+        self.cells - self.outcomes[0]
+    }
+
+    /// Whether the law may be ranked in this group: it has a mean, and every one of its runs
+    /// held and controlled the robot (status `ok`) in a condition within the plan's limit. A law
+    /// with any other outcome in the group has a mean over a different set of runs (or none).
+    pub fn rankable(&self) -> bool {
+        self.stat.is_some() && self.not_ok() == 0 && self.beyond == 0
+    }
+}
+
+/// Whether a cell's numbers enter means and rankings: it ended `ok` and its condition is within
+/// the plan's physical limit.
+pub fn counts(c: &Cell) -> bool {
+    c.status.counts_for_means() && !c.beyond_plan_limit
+}
+
+/// `(seed, value)` samples of the cells that count.
+fn seed_samples<'a>(
+    cells: impl Iterator<Item = &'a Cell>,
+    measure: Measure,
+) -> impl Iterator<Item = (u64, f64)> {
+    cells
+        .filter(|c| counts(c))
+        .map(move |c| (c.seed, measure.value(c)))
+}
+
+/// Per-seed means of the cells that count (non-finite values left out), by seed.
+pub fn seed_means<'a>(
+    cells: impl Iterator<Item = &'a Cell>,
+    measure: Measure,
+) -> BTreeMap<u64, f64> {
+    let mut acc: BTreeMap<u64, (f64, usize)> = BTreeMap::new();
+    for (seed, v) in seed_samples(cells, measure) {
+        if v.is_finite() {
+            let e = acc.entry(seed).or_insert((0.0, 0));
+            e.0 += v;
+            e.1 += 1;
+        }
+    }
+    acc.into_iter()
+        .map(|(s, (sum, n))| (s, sum / n as f64))
+        .collect()
+}
+
+/// Significance level of the paired test between two laws.
+pub const PAIRED_ALPHA: f64 = 0.05;
+
+/// Paired t-test across seeds (two-sided, α = [`PAIRED_ALPHA`]) on the per-seed values of two
+/// laws in the same group: the seeds are the pairs (same initial jitter, same conditions), the
+/// statistic t = d̄ / (s_d / √n) over the n per-seed differences with n − 1 degrees of freedom
+/// (Montgomery & Runger, "Applied Statistics and Probability for Engineers", Wiley, 3rd ed.
+/// 2003, §10-4 "Paired t-test"; from memory). Chosen over the sign test and the Wilcoxon
+/// signed-rank test because with three seeds neither of those can reach α = 0.05 (their
+/// smallest two-sided p-value with n = 3 is 2 · 2⁻³ = 0.25), while the t-test can (t(0.975, 2)
+/// = 4.30). Needs two common seeds; a zero spread with a nonzero mean difference is significant.
+pub fn paired_difference_significant(a: &BTreeMap<u64, f64>, b: &BTreeMap<u64, f64>) -> bool {
+    let diffs: Vec<f64> = a
+        .iter()
+        .filter_map(|(seed, va)| b.get(seed).map(|vb| va - vb))
+        .collect();
+    let n = diffs.len();
+    if n < 2 {
+        return false;
+    }
+    let mean = diffs.iter().sum::<f64>() / n as f64;
+    let var = diffs.iter().map(|d| (d - mean).powi(2)).sum::<f64>() / (n - 1) as f64;
+    if var == 0.0 {
+        return mean != 0.0;
+    }
+    let t = mean / (var / n as f64).sqrt();
+    t.abs() > t_975(n - 1)
 }
 
 /// Which law had the lowest mean slip in a row, under the slip-floor rule.
@@ -348,6 +458,46 @@ pub fn judge(means: &[(usize, f64)], floor: f64) -> Verdict {
     }
 }
 
+/// The slip-floor rule with the paired test: the lowest mean wins only if every other law's
+/// mean exceeds it by more than `floor` *and* the paired t-test across seeds
+/// ([`paired_difference_significant`]) finds the difference; every other law ties with it.
+/// `laws`: (controller, per-seed values) of the rankable laws.
+pub fn judge_paired(laws: &[(usize, BTreeMap<u64, f64>)], floor: f64) -> Verdict {
+    let mean = |m: &BTreeMap<u64, f64>| m.values().sum::<f64>() / m.len().max(1) as f64;
+    let mut sorted: Vec<(usize, f64, &BTreeMap<u64, f64>)> = laws
+        .iter()
+        .filter(|(_, m)| !m.is_empty())
+        .map(|(c, m)| (*c, mean(m), m))
+        .filter(|x| x.1.is_finite())
+        .collect();
+    sorted.sort_by(|a, b| a.1.total_cmp(&b.1));
+    match sorted.as_slice() {
+        [] => Verdict::NoData,
+        [(only, _, _)] => Verdict::Only(*only),
+        [(best, low, best_seeds), rest @ ..] => {
+            let tied: Vec<usize> = rest
+                .iter()
+                .filter(|(_, m, seeds)| {
+                    !(m - low > floor && paired_difference_significant(seeds, best_seeds))
+                })
+                .map(|(c, _, _)| *c)
+                .collect();
+            if tied.is_empty() {
+                let (runner_up, second, _) = rest[0];
+                Verdict::Lowest {
+                    ctrl: *best,
+                    margin: second - low,
+                    runner_up,
+                }
+            } else {
+                let mut all = vec![*best];
+                all.extend(tied);
+                Verdict::Tied(all)
+            }
+        }
+    }
+}
+
 /// A controller-by-row table: rows are the values of one axis, columns the controllers,
 /// optionally for one fixed value of another axis (the slope, for the slip tables).
 #[derive(Clone, Debug)]
@@ -355,12 +505,18 @@ pub struct Pivot {
     /// Table name in `summary.csv`.
     pub table: &'static str,
     pub fixed: Option<(Axis, usize)>,
+    /// Further fixed axis values (the per-regime slip tables fix the rate and actuator too).
+    pub extra_fixed: Vec<(Axis, usize)>,
     pub row_axis: Axis,
     pub measure: Measure,
     pub rows: Vec<PivotRow>,
     /// Whether the rows carry a slip-floor verdict (slip tables only: the floor is a slip
     /// floor and says nothing about tracking differences).
     pub judged: bool,
+    /// For a within-law table ([`Study::within_law`]): per controller, the conditions it was
+    /// compared over (every run at every value of the row axis ended `ok`) and the conditions
+    /// it ran in. `None` for a pooled table.
+    pub matched: Option<Vec<(usize, usize)>>,
 }
 
 #[derive(Clone, Debug)]
@@ -381,8 +537,8 @@ pub struct Condition {
     pub idx: [usize; 7],
     /// Mean slip per controller.
     pub entries: Vec<Entry>,
-    /// Among the laws that had a slip mean and did not fall or diverge in any run here: a law
-    /// that fell has a mean only over the runs it survived, which would flatter it.
+    /// Among the laws whose every run here ended `ok` within the plan's limit (see
+    /// [`Entry::rankable`]), by the slip floor and the paired test ([`judge_paired`]).
     pub verdict: Verdict,
 }
 
@@ -501,33 +657,46 @@ impl<'a> Study<'a> {
         measure: Measure,
         judged: bool,
     ) -> Pivot {
+        let all: Vec<(Axis, usize)> = fixed.into_iter().collect();
+        self.pivot_fixed(table, &all, row_axis, measure, judged)
+    }
+
+    /// [`Study::pivot`] with any number of fixed axis values.
+    pub fn pivot_fixed(
+        &self,
+        table: &'static str,
+        fixed_all: &[(Axis, usize)],
+        row_axis: Axis,
+        measure: Measure,
+        judged: bool,
+    ) -> Pivot {
         let rows = (0..self.axes.len(row_axis))
             .map(|value| {
                 let mut sel = vec![(row_axis, value)];
-                sel.extend(fixed);
+                sel.extend(fixed_all.iter().copied());
                 let entries: Vec<Entry> = (0..self.controllers().len())
                     .map(|c| self.entry(c, &sel, measure))
                     .collect();
-                // A law that fell somewhere in the row has a mean over only the runs it
-                // survived, usually the easier ones, so it is shown but not ranked.
+                // A law with any run in the row that did not end ok has a mean over only part
+                // of the row's runs (usually the easier ones), so it is shown but not ranked.
                 let unranked: Vec<usize> = if judged {
                     entries
                         .iter()
                         .enumerate()
-                        .filter(|(_, e)| e.stat.is_some() && e.fell > 0)
+                        .filter(|(_, e)| e.stat.is_some() && !e.rankable())
                         .map(|(c, _)| c)
                         .collect()
                 } else {
                     Vec::new()
                 };
                 let verdict = judged.then(|| {
-                    let means: Vec<(usize, f64)> = entries
+                    let laws: Vec<(usize, BTreeMap<u64, f64>)> = entries
                         .iter()
                         .enumerate()
-                        .filter(|(_, e)| e.fell == 0)
-                        .filter_map(|(c, e)| e.stat.map(|s| (c, s.mean)))
+                        .filter(|(_, e)| e.rankable())
+                        .map(|(c, _)| (c, seed_means(self.select(c, &sel), measure)))
                         .collect();
-                    judge(&means, self.floor)
+                    judge_paired(&laws, self.floor)
                 });
                 PivotRow {
                     value,
@@ -539,12 +708,142 @@ impl<'a> Study<'a> {
             .collect();
         Pivot {
             table,
-            fixed,
+            fixed: fixed_all.first().copied(),
+            extra_fixed: fixed_all.iter().skip(1).copied().collect(),
             row_axis,
             measure,
             rows,
             judged,
+            matched: None,
         }
+    }
+
+    /// Per slope, the slip-by-friction tables of each (control rate, actuator model) — but only
+    /// for the slopes where pooling rates and actuators changes the answer: some row's leaders
+    /// (winner or tied laws) in some regime differ from the pooled table's. Empty for a slope
+    /// whose pooled verdicts hold in every regime.
+    pub fn slip_by_regime(&self, pooled: &[Pivot]) -> Vec<Vec<Pivot>> {
+        let (n_rate, n_act) = (self.axes.len(Axis::Rate), self.axes.len(Axis::Actuator));
+        (0..self.axes.len(Axis::Slope))
+            .map(|s| {
+                if n_rate * n_act < 2 {
+                    return Vec::new();
+                }
+                let mut split = Vec::new();
+                for r in 0..n_rate {
+                    for a in 0..n_act {
+                        let p = self.pivot_fixed(
+                            "slip_by_friction_regime",
+                            &[(Axis::Slope, s), (Axis::Rate, r), (Axis::Actuator, a)],
+                            Axis::Mu,
+                            SLIP,
+                            true,
+                        );
+                        if p.rows
+                            .iter()
+                            .any(|row| row.entries.iter().any(|e| e.cells > 0))
+                        {
+                            split.push(p);
+                        }
+                    }
+                }
+                let leaders = |row: &PivotRow| {
+                    row.verdict
+                        .as_ref()
+                        .map(Verdict::leaders)
+                        .unwrap_or_default()
+                };
+                let changes = split.iter().any(|p| {
+                    p.rows.iter().zip(&pooled[s].rows).any(|(row, pooled_row)| {
+                        !matches!(row.verdict, Some(Verdict::NoData) | None)
+                            && leaders(row) != leaders(pooled_row)
+                    })
+                });
+                if changes { split } else { Vec::new() }
+            })
+            .collect()
+    }
+
+    /// Each law against itself across the values of `axis` (control rates, actuator models):
+    /// for each controller, only the conditions (every other axis fixed, all seeds) in which
+    /// every one of its runs at every value of `axis` ended `ok` within the plan's limit, so
+    /// each row of a column averages the same conditions and no mean is over different
+    /// survivors. Columns are not compared with each other (each law has its own set), so the
+    /// rows carry no verdict; each entry's outcome counts cover all the law's runs at that value.
+    pub fn within_law(&self, table: &'static str, axis: Axis, measure: Measure) -> Pivot {
+        let n_ctrl = self.controllers().len();
+        let n_val = self.axes.len(axis);
+        let mut matched = Vec::with_capacity(n_ctrl);
+        // Per controller: the condition keys (axis index blanked) that qualify.
+        let mut qualifying: Vec<std::collections::HashSet<[usize; 7]>> = Vec::new();
+        for c in 0..n_ctrl {
+            // key without `axis` → (values seen, all counted)
+            let mut groups: HashMap<[usize; 7], (Vec<bool>, bool)> = HashMap::new();
+            for (cell, (key, cc)) in self.run.cells.iter().zip(self.keys.iter().zip(&self.ctrl)) {
+                if *cc != c {
+                    continue;
+                }
+                let mut k = *key;
+                let v = k[axis as usize];
+                k[axis as usize] = usize::MAX;
+                let g = groups.entry(k).or_insert((vec![false; n_val], true));
+                g.0[v] = true;
+                g.1 &= counts(cell);
+            }
+            let total = groups.len();
+            let ok: std::collections::HashSet<[usize; 7]> = groups
+                .into_iter()
+                .filter(|(_, (seen, all_ok))| *all_ok && seen.iter().all(|s| *s))
+                .map(|(k, _)| k)
+                .collect();
+            matched.push((ok.len(), total));
+            qualifying.push(ok);
+        }
+        let rows = (0..n_val)
+            .map(|value| {
+                let entries = (0..n_ctrl)
+                    .map(|c| {
+                        let sel = [(axis, value)];
+                        let in_set = |cell: &&Cell| {
+                            let i = self.index_of(cell);
+                            let mut k = self.keys[i];
+                            k[axis as usize] = usize::MAX;
+                            qualifying[c].contains(&k)
+                        };
+                        Entry::of_split(
+                            self.select(c, &sel),
+                            self.select(c, &sel).filter(in_set),
+                            measure,
+                        )
+                    })
+                    .collect();
+                PivotRow {
+                    value,
+                    entries,
+                    verdict: None,
+                    unranked: Vec::new(),
+                }
+            })
+            .collect();
+        Pivot {
+            table,
+            fixed: None,
+            extra_fixed: Vec::new(),
+            row_axis: axis,
+            measure,
+            rows,
+            judged: false,
+            matched: Some(matched),
+        }
+    }
+
+    /// Position of a cell of this run in `run.cells` (cells are distinct by id and order).
+    fn index_of(&self, cell: &Cell) -> usize {
+        // `run.cells` is sorted by matrix index, unique per cell.
+        self.run
+            .cells
+            .binary_search_by_key(&cell.index, |c| c.index)
+            .unwrap_or(0)
     }
 
     /// Slip by μ × controller, one table per slope.
@@ -596,13 +895,13 @@ impl<'a> Study<'a> {
                     .iter()
                     .map(|cells| Entry::of(cells.iter().copied(), SLIP))
                     .collect();
-                let eligible: Vec<(usize, f64)> = entries
+                let eligible: Vec<(usize, BTreeMap<u64, f64>)> = entries
                     .iter()
                     .enumerate()
-                    .filter(|(_, e)| e.fell == 0)
-                    .filter_map(|(c, e)| e.stat.map(|s| (c, s.mean)))
+                    .filter(|(_, e)| e.rankable())
+                    .map(|(c, _)| (c, seed_means(per_ctrl[c].iter().copied(), SLIP)))
                     .collect();
-                let verdict = judge(&eligible, self.floor);
+                let verdict = judge_paired(&eligible, self.floor);
                 Condition {
                     idx,
                     entries,
@@ -637,8 +936,8 @@ impl<'a> Study<'a> {
     }
 
     /// Status counts per controller, in [`Status::ALL`] order.
-    pub fn status_counts(&self) -> Vec<[usize; 5]> {
-        let mut out = vec![[0usize; 5]; self.controllers().len()];
+    pub fn status_counts(&self) -> Vec<[usize; Status::ALL.len()]> {
+        let mut out = vec![[0usize; Status::ALL.len()]; self.controllers().len()];
         for (cell, c) in self.run.cells.iter().zip(&self.ctrl) {
             if let Some(k) = Status::ALL.iter().position(|s| *s == cell.status) {
                 out[*c][k] += 1;
@@ -793,6 +1092,47 @@ impl<'a> Study<'a> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn report_paired_test_by_hand() {
+        use std::collections::BTreeMap;
+        let m = |v: &[f64]| -> BTreeMap<u64, f64> {
+            v.iter().enumerate().map(|(i, x)| (i as u64, *x)).collect()
+        };
+        // Differences 1.0, 1.2, 0.9: mean 1.0333, s = 0.1528, t = 11.7 > t(0.975, 2) = 4.30.
+        assert!(paired_difference_significant(
+            &m(&[2.0, 2.2, 1.9]),
+            &m(&[1.0, 1.0, 1.0])
+        ));
+        // Differences −1, −0.5, +1: t = −0.17, no difference.
+        assert!(!paired_difference_significant(
+            &m(&[1.0, 2.0, 4.0]),
+            &m(&[2.0, 2.5, 3.0])
+        ));
+        // One seed: nothing to test.
+        assert!(!paired_difference_significant(&m(&[1.0]), &m(&[5.0])));
+        // A constant nonzero difference is significant; equal values are not.
+        assert!(paired_difference_significant(
+            &m(&[1.0, 1.0]),
+            &m(&[1.5, 1.5])
+        ));
+        assert!(!paired_difference_significant(
+            &m(&[1.0, 1.0]),
+            &m(&[1.0, 1.0])
+        ));
+        // The verdict: a gap above the floor without support is a tie.
+        let v = judge_paired(&[(0, m(&[1.0, 2.0, 4.0])), (1, m(&[2.0, 2.5, 3.0]))], 0.0);
+        assert_eq!(v, Verdict::Tied(vec![0, 1]));
+        let v = judge_paired(&[(0, m(&[1.0, 1.0, 1.0])), (1, m(&[1.5, 1.5, 1.5]))], 0.2);
+        assert!(matches!(
+            v,
+            Verdict::Lowest {
+                ctrl: 0,
+                runner_up: 1,
+                ..
+            }
+        ));
+    }
 
     #[test]
     fn report_floor_rule() {
