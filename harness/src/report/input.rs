@@ -326,13 +326,12 @@ pub fn read_run(dir: &Path) -> Result<Run, String> {
     })
 }
 
-/// HOOK (issue 10, parts 1–2: the plan's friction limit). Whether a cell's condition is beyond
-/// what its plan allows any law to hold: μ below the plan's μ_required for the cell's slope, or
-/// a torque share above 1. The single place the report asks; every table that ranks or pools
-/// excludes such cells ([`Cell::beyond_plan_limit`]). Until the manifest carries μ_required
-/// per slope, no condition is beyond the limit.
-pub fn beyond_plan_limit(_manifest: &Manifest, _cell: &Cell) -> bool {
-    false
+/// Whether a cell's condition is beyond what its plan allows any law to hold: μ below the plan's
+/// μ_required for the cell's slope, or a torque share above 1 ([`Manifest::beyond_plan_limit`]).
+/// The single place the report asks; every table that ranks or pools excludes such cells
+/// ([`Cell::beyond_plan_limit`]). Runs whose manifest has no limit for the slope: never beyond.
+pub fn beyond_plan_limit(manifest: &Manifest, cell: &Cell) -> bool {
+    manifest.beyond_plan_limit(cell.slope_deg, cell.mu)
 }
 
 /// Reads `manifest.json`; only the three fields the report needs are required.
