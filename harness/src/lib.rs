@@ -4,6 +4,7 @@
 pub mod cell;
 pub mod cli_robot;
 pub mod cli_run;
+pub mod floor;
 pub mod matrix;
 pub mod metrics;
 pub mod onset;
@@ -13,5 +14,6 @@ pub mod report;
 pub mod robot;
 pub mod runner;
 pub mod scenario;
+pub mod tuning;
 
 pub use gripsweep_controllers as controllers;
