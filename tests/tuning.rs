@@ -3,7 +3,6 @@
 
 use gripsweep::cell::{CellContext, run_cell};
 use gripsweep::floor::{FLOOR_BOUND_MM, slip_floor};
-use gripsweep::matrix::Cell;
 use gripsweep::metrics::CellStatus;
 use gripsweep::planner::Gait;
 use gripsweep::plant::actuator::ActuatorKind;
@@ -243,7 +242,7 @@ fn bad_tuning_input_is_refused_with_file_and_field() {
         std::fs::write(
             &p,
             format!(
-                "name = \"bad\"\nrobot = \"{}\"\nduration = 2.0\n{laws}\n[axes]\ncontroller = [\"stiff-pd\"]\n",
+                "name = \"bad\"\nrobot = \"{}\"\nduration = 4.0\n{laws}\n[axes]\ncontroller = [\"stiff-pd\"]\n",
                 robots.join(robot).display()
             ),
         )

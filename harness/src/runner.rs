@@ -362,6 +362,9 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     std::fs::write(out.join(crate::tuning::GAINS_FILE), &gains_csv)
         .map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
     man["gains_sha256"] = json!(sha256_hex(&gains_csv));
+    if man.get("slip_locked_mm").is_none() {
+        man["slip_locked_mm"] = json!(crate::floor::locked_slip(s, &robot));
+    }
     let implausible = !(floor <= crate::floor::FLOOR_BOUND_MM);
     man["slip_floor_implausible"] = json!(implausible);
     if implausible {
@@ -653,6 +656,13 @@ pub fn merge(
                 shards[0].0.display()
             )));
         }
+        if m["gains_sha256"] != shards[0].1["gains_sha256"] {
+            return Err(RunError::input(format!(
+                "{}: ran with other gains (gains.csv) than {}; tune once and pass the table to every shard with --gains-from",
+                d.display(),
+                shards[0].0.display()
+            )));
+        }
         if *kk != k {
             return Err(RunError::input(format!(
                 "{}: a shard of {kk}, the others of {k}",
@@ -730,6 +740,12 @@ pub fn merge(
             .map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
     }
     std::fs::create_dir_all(out).map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
+    // Every shard ran with the same tuning table (checked above): the joined run's is that one.
+    let gains = shards[0].0.join(crate::tuning::GAINS_FILE);
+    if gains.is_file() {
+        std::fs::copy(&gains, out.join(crate::tuning::GAINS_FILE))
+            .map_err(|e| RunError::other(format!("{}: {e}", gains.display())))?;
+    }
     all_rows.sort_by_key(|r| r[1].parse::<usize>().unwrap_or(usize::MAX));
     let head = header();
     write_sorted(&out.join(CELLS_FILE), &head, &all_rows).map_err(RunError::other)?;

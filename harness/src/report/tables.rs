@@ -441,6 +441,17 @@ pub struct Study<'a> {
 }
 
 impl<'a> Study<'a> {
+    /// The floor slip verdicts are judged against: above the plausibility bound
+    /// ([`crate::floor::FLOOR_BOUND_MM`]) it is infinite, so every law ties and nothing is
+    /// ranked on slip.
+    pub fn rank_floor(&self) -> f64 {
+        if self.floor > crate::floor::FLOOR_BOUND_MM {
+            f64::INFINITY
+        } else {
+            self.floor
+        }
+    }
+
     pub fn new(run: &'a Run) -> Study<'a> {
         let axes = Axes::from_cells(&run.cells);
         let keys = run
@@ -527,7 +538,7 @@ impl<'a> Study<'a> {
                         .filter(|(_, e)| e.fell == 0)
                         .filter_map(|(c, e)| e.stat.map(|s| (c, s.mean)))
                         .collect();
-                    judge(&means, self.floor)
+                    judge(&means, self.rank_floor())
                 });
                 PivotRow {
                     value,
@@ -602,7 +613,7 @@ impl<'a> Study<'a> {
                     .filter(|(_, e)| e.fell == 0)
                     .filter_map(|(c, e)| e.stat.map(|s| (c, s.mean)))
                     .collect();
-                let verdict = judge(&eligible, self.floor);
+                let verdict = judge(&eligible, self.rank_floor());
                 Condition {
                     idx,
                     entries,
