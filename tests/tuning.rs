@@ -19,7 +19,12 @@ fn scenario(text: &str) -> Scenario {
     Scenario::from_text("test.toml", text, Some(&robots_dir())).expect("valid scenario")
 }
 
-fn row<'a>(t: &'a GainTable, law: &str, rate: f64, act: ActuatorKind) -> &'a gripsweep::tuning::GainRow {
+fn row<'a>(
+    t: &'a GainTable,
+    law: &str,
+    rate: f64,
+    act: ActuatorKind,
+) -> &'a gripsweep::tuning::GainRow {
     t.rows
         .iter()
         .find(|r| r.combo.law == law && r.combo.rate_hz == rate && r.combo.actuator == act)
@@ -58,7 +63,7 @@ duration = 3.0
 kind = "KIND"
 body_height = 0.30
 amplitude = 0.03
-period = 1.5
+period = 2.0
 [axes]
 rate_hz = [100.0, 250.0, 1000.0]
 actuator = ["ideal", "open-current", "torque-loop"]
@@ -134,7 +139,10 @@ controller = ["stiff-pd", "id-grip-load"]
     let (a, b) = (&td.rows[0].settings, &to.rows[0].settings);
     assert_ne!((a.stiff_kp, a.stiff_kd), (b.stiff_kp, b.stiff_kd));
     let floor = slip_floor(&other, &ro);
-    assert!(floor.is_finite() && floor < FLOOR_BOUND_MM, "floor {floor} mm");
+    assert!(
+        floor.is_finite() && floor < FLOOR_BOUND_MM,
+        "floor {floor} mm"
+    );
 }
 
 #[test]
@@ -202,7 +210,12 @@ controller = ["stiff-pd", "id-lean"]
     let t2 = tune(&free, &robot, None).unwrap();
     let lean_row = row(&t2, "id-lean", 250.0, ActuatorKind::Ideal);
     assert!(lean_row.trials > 0 && lean_row.bound != "pinned");
-    assert_eq!(row(&t2, "stiff-pd", 250.0, ActuatorKind::Ideal).settings.stiff_kp, 5000.0);
+    assert_eq!(
+        row(&t2, "stiff-pd", 250.0, ActuatorKind::Ideal)
+            .settings
+            .stiff_kp,
+        5000.0
+    );
 }
 
 #[test]
@@ -261,18 +274,37 @@ fn bad_tuning_input_is_refused_with_file_and_field() {
     ];
     for (file, field) in &cases {
         let out_dir = dir.join("out");
-        let o = gripsweep(&["run", file.to_str().unwrap(), "--out", out_dir.to_str().unwrap(), "--quiet"]);
+        let o = gripsweep(&[
+            "run",
+            file.to_str().unwrap(),
+            "--out",
+            out_dir.to_str().unwrap(),
+            "--quiet",
+        ]);
         let err = String::from_utf8_lossy(&o.stderr);
         assert_eq!(o.status.code(), Some(2), "{err}");
-        assert!(err.contains(file.to_str().unwrap()) && err.contains(field), "{err}");
+        assert!(
+            err.contains(file.to_str().unwrap()) && err.contains(field),
+            "{err}"
+        );
         assert!(!out_dir.exists());
     }
     // A tuning table made for another robot.
     let demo = write("demo.toml", "brindle.toml", "");
     let other = write("other.toml", "tamber.toml", "");
     let table = dir.join("gains-demo.csv");
-    let o = gripsweep(&["tune", demo.to_str().unwrap(), "--out", table.to_str().unwrap()]);
-    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    let o = gripsweep(&[
+        "tune",
+        demo.to_str().unwrap(),
+        "--out",
+        table.to_str().unwrap(),
+    ]);
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
     let out_dir = dir.join("out");
     let o = gripsweep(&[
         "run",
@@ -285,7 +317,10 @@ fn bad_tuning_input_is_refused_with_file_and_field() {
     ]);
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(o.status.code(), Some(2), "{err}");
-    assert!(err.contains(table.to_str().unwrap()) && err.contains("robot files"), "{err}");
+    assert!(
+        err.contains(table.to_str().unwrap()) && err.contains("robot files"),
+        "{err}"
+    );
     assert!(err.contains("inputs_sha256"), "{err}");
     assert!(!out_dir.exists());
     let _ = std::fs::remove_dir_all(&dir);

@@ -18,9 +18,9 @@
 use crate::cell::{CellContext, run_cell};
 use crate::matrix::Cell;
 use crate::metrics::MetricsAccumulator;
-use crate::plant::actuator::ActuatorKind;
 use crate::planner::{Gait, Plan};
 use crate::plant::Plant;
+use crate::plant::actuator::ActuatorKind;
 use crate::plant::terrain::Slope;
 use crate::robot::LoadedRobot;
 use crate::scenario::Scenario;
@@ -80,8 +80,7 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
 /// (NaN when the standing posture cannot be planned): a diagnostic beside the floor.
 pub fn locked_slip(s: &Scenario, robot: &LoadedRobot) -> f64 {
     let slope = Slope::degrees(0.0);
-    let Ok(plan) = Plan::build(&robot.model, &robot.facts, &slope, &Gait::Stand, s.duration)
-    else {
+    let Ok(plan) = Plan::build(&robot.model, &robot.facts, &slope, &Gait::Stand, s.duration) else {
         return f64::NAN;
     };
     let model = &robot.model;

@@ -109,7 +109,11 @@ pub fn nominal_stance(model: &Model, facts: &RobotFacts) -> NominalStance {
     use gripsweep_controllers::algorithms::{Workspace, forward_kinematics, frame_pose};
     let mut ws = Workspace::new(model);
     let mut q = model.neutral();
-    let nb = if model.root == RootKind::Floating { 7 } else { 0 };
+    let nb = if model.root == RootKind::Floating {
+        7
+    } else {
+        0
+    };
     for (k, x) in facts.nominal_joints(model).into_iter().enumerate() {
         q[nb + k] = x;
     }

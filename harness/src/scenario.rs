@@ -827,19 +827,26 @@ fn parse_law_tables(
         if let Some(at) = t.get("at_rate") {
             let afield = format!("{field}.at_rate");
             let toml::Value::Table(at) = at else {
-                return Err((afield, "must be a table of rates ([laws.<name>.at_rate.<Hz>])".into()));
+                return Err((
+                    afield,
+                    "must be a table of rates ([laws.<name>.at_rate.<Hz>])".into(),
+                ));
             };
             for (hz, sub) in at {
                 let rfield = format!("{afield}.{hz}");
-                let rate: f64 = hz.parse().map_err(|_| {
-                    (rfield.clone(), "not a control rate in Hz".to_string())
-                })?;
+                let rate: f64 = hz
+                    .parse()
+                    .map_err(|_| (rfield.clone(), "not a control rate in Hz".to_string()))?;
                 if !rates.contains(&rate) {
                     return Err((
                         rfield,
                         format!(
                             "{rate} Hz is not in `axes.rate_hz` ({})",
-                            rates.iter().map(|r| r.to_string()).collect::<Vec<_>>().join(", ")
+                            rates
+                                .iter()
+                                .map(|r| r.to_string())
+                                .collect::<Vec<_>>()
+                                .join(", ")
                         ),
                     ));
                 }

@@ -175,7 +175,10 @@ pub struct GainRow {
 /// before tuning. A table is reusable only where this matches.
 pub fn tuning_inputs(s: &Scenario, robot: &LoadedRobot) -> Vec<(&'static str, String)> {
     vec![
-        ("robot files", sha256_hex(&[&robot.facts_text, &robot.urdf_text])),
+        (
+            "robot files",
+            sha256_hex(&[&robot.facts_text, &robot.urdf_text]),
+        ),
         ("plant settings", sha256_hex(&[&format!("{:?}", s.plant)])),
         (
             "tuning motion (gait.body_height, falls)",
@@ -462,7 +465,14 @@ impl GainTable {
         for (r, digest) in self.rows.iter().zip(&self.digests) {
             let st = &r.settings;
             let (skp, skd, tkp, tkd, jkp, jkd) = if r.combo.law == "stiff-pd" {
-                (st.stiff_kp, st.stiff_kd, f64::NAN, f64::NAN, f64::NAN, f64::NAN)
+                (
+                    st.stiff_kp,
+                    st.stiff_kd,
+                    f64::NAN,
+                    f64::NAN,
+                    f64::NAN,
+                    f64::NAN,
+                )
             } else {
                 (
                     f64::NAN,
@@ -595,7 +605,10 @@ pub fn read_table(path: &Path, s: &Scenario, robot: &LoadedRobot) -> Result<Gain
                 return Ok(f64::NAN);
             }
             v.parse::<f64>().map_err(|_| {
-                format!("{}: row {row}, column {name}: '{v}' is not a number", path.display())
+                format!(
+                    "{}: row {row}, column {name}: '{v}' is not a number",
+                    path.display()
+                )
             })
         };
         let law = field("law").to_string();
@@ -679,8 +692,16 @@ pub fn read_table(path: &Path, s: &Scenario, robot: &LoadedRobot) -> Result<Gain
                     path.display(),
                     c.law,
                     c.rate_hz,
-                    if s.gains_pinned(&c.law, c.rate_hz) { "pins" } else { "does not pin" },
-                    if r.bound == "pinned" { "does" } else { "does not" }
+                    if s.gains_pinned(&c.law, c.rate_hz) {
+                        "pins"
+                    } else {
+                        "does not pin"
+                    },
+                    if r.bound == "pinned" {
+                        "does"
+                    } else {
+                        "does not"
+                    }
                 ));
             }
             _ => {}
