@@ -365,7 +365,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     if man.get("slip_locked_mm").is_none() {
         man["slip_locked_mm"] = json!(crate::floor::locked_slip(s, &robot));
     }
-    let implausible = !(floor <= crate::floor::FLOOR_BOUND_MM);
+    let implausible = floor.is_nan() || floor > crate::floor::FLOOR_BOUND_MM;
     man["slip_floor_implausible"] = json!(implausible);
     if implausible {
         eprintln!(
