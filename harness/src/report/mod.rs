@@ -202,12 +202,21 @@ fn gains_section(dir: &Path, floor: f64) -> String {
             .iter()
             .map(|(name, _)| {
                 let v = col(name).and_then(|k| rec.get(k)).unwrap_or("");
-                match v.parse::<f64>() {
+                let bound = col("s_critical_bound")
+                    .and_then(|k| rec.get(k))
+                    .unwrap_or("");
+                let mark = match (*name, bound) {
+                    ("s_critical", "at-upper") => "≥ ",
+                    ("s_critical", "below-lower") => "< ",
+                    _ => "",
+                };
+                let text = match v.parse::<f64>() {
                     Ok(x) if *name != "rate_hz" && x.abs() >= 100.0 => format!("{x:.0}"),
                     Ok(x) if *name != "rate_hz" => format!("{x:.3}"),
                     _ if v.is_empty() => "—".to_string(),
                     _ => v.to_string(),
-                }
+                };
+                format!("{mark}{text}")
             })
             .collect();
         let _ = writeln!(out, "| {} |", cells.join(" | "));
