@@ -95,9 +95,10 @@ fn replay(s: &Scenario, robot: &gripsweep::robot::LoadedRobot, cell: &Cell) -> P
     let (mut q, mut v) = plan.initial_state();
     plant.set_state(&q, &v);
     let law_model = controller_model(model, cell.mass_scale, cell.com_shift_mm);
+    let base_law = s.law_settings_for(&cell.controller, cell.rate_hz, cell.actuator);
     let settings_law = LawSettings {
         foot_radius: robot.facts.feet.radius,
-        ..law_settings(&s.laws, &slope, cell.mu, s.mu_estimate_scale)
+        ..law_settings(&base_law, &slope, cell.mu, s.mu_estimate_scale)
     };
     let mut law = build_law(&cell.controller, law_model, feet.clone(), &settings_law).expect("law");
     let steps = (s.duration / dt).round() as usize;

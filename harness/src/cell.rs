@@ -225,9 +225,10 @@ fn simulate(
     plant.set_state(&q, &v);
 
     let law_model = controller_model(model, cell.mass_scale, cell.com_shift_mm);
+    let base_law = s.law_settings_for(&cell.controller, cell.rate_hz, cell.actuator);
     let settings_law = LawSettings {
         foot_radius: robot.facts.feet.radius,
-        ..law_settings(&s.laws, &slope, cell.mu, s.mu_estimate_scale)
+        ..law_settings(&base_law, &slope, cell.mu, s.mu_estimate_scale)
     };
     let mut law: Box<dyn ControlLaw> =
         match build_law(&cell.controller, law_model, feet.clone(), &settings_law) {

@@ -332,6 +332,12 @@ pub fn summary_json(robot: &LoadedRobot, with_armature: bool) -> Map<String, Val
     };
     out.insert("feet".into(), json!(feet));
     out.insert("foot_radius".into(), radius);
+    // The stance the gait defaults are derived from (see the README's scenario table).
+    if let Some(f) = &robot.facts {
+        let st = crate::robot::nominal_stance(model, f);
+        out.insert("stance_height".into(), json!(st.height));
+        out.insert("stance_feet".into(), json!(st.feet));
+    }
     out.insert("nominal_q".into(), json!(q0.as_slice()));
     out.insert("com_nominal".into(), vec3(&com));
     out.insert("armature_in_mass_matrix".into(), json!(with_armature));
@@ -447,6 +453,19 @@ pub fn summary_text(robot: &LoadedRobot, with_armature: bool) -> String {
                 f.feet.frames.join(", "),
                 f.feet.radius
             );
+            let st = crate::robot::nominal_stance(model, f);
+            let _ = writeln!(
+                s,
+                "  stance height     {:.4} m: base frame above the ground in the nominal posture (the default gait.body_height; step h/5, swing height h/6, crawl margin h/15, weight-shift amplitude h/10)",
+                st.height
+            );
+            for (name, p) in f.feet.frames.iter().zip(&st.feet) {
+                let _ = writeln!(
+                    s,
+                    "  foot {name:<12} ({:.4}, {:.4}, {:.4}) m in the base frame, nominal posture",
+                    p[0], p[1], p[2]
+                );
+            }
         }
         None => {
             let _ = writeln!(

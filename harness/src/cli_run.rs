@@ -33,6 +33,23 @@ pub struct RunArgs {
     /// No progress output.
     #[arg(long)]
     pub quiet: bool,
+    /// Reuse a tuning table made earlier (a run folder's gains.csv, or `gripsweep tune --out`)
+    /// instead of tuning; refused when it was made for other robot files, plant settings or
+    /// law settings.
+    #[arg(long, value_name = "GAINS.csv")]
+    pub gains_from: Option<PathBuf>,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct TuneArgs {
+    /// Scenario file (TOML). Default: the embedded default scenario.
+    pub scenario: Option<PathBuf>,
+    /// Worker threads. Default: one per core (the table does not depend on it).
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Also write the table to this file (refused if it exists), for `run --gains-from`.
+    #[arg(long)]
+    pub out: Option<PathBuf>,
 }
 
 #[derive(Args, Debug, Clone)]
@@ -140,6 +157,7 @@ pub fn cmd_run(a: &RunArgs) -> Result<String, RunError> {
         force: a.force,
         quiet: a.quiet,
         no_report: false,
+        gains_from: a.gains_from.clone(),
     };
     let sum = run(&s, &opts)?;
     Ok(format!(
@@ -153,6 +171,36 @@ pub fn cmd_run(a: &RunArgs) -> Result<String, RunError> {
         sum.wall_s,
         out.display()
     ))
+}
+
+/// `tune`: the tuning alone; the table as CSV on stdout.
+pub fn cmd_tune(a: &TuneArgs) -> Result<String, RunError> {
+    let s = load(&a.scenario)?;
+    if a.threads == Some(0) {
+        return Err(RunError::input("--threads 0: allowed: 1 or more"));
+    }
+    if let Some(p) = &a.out
+        && p.exists()
+    {
+        return Err(RunError::input(format!(
+            "--out {}: the file exists; choose another name",
+            p.display()
+        )));
+    }
+    let robot = s.load_robot().map_err(RunError::input)?;
+    let started = Instant::now();
+    let table = crate::tuning::tune(&s, &robot, a.threads).map_err(RunError::input)?;
+    let csv = table.to_csv();
+    if let Some(p) = &a.out {
+        std::fs::write(p, &csv).map_err(|e| RunError::other(format!("{}: {e}", p.display())))?;
+    }
+    let trials: usize = table.rows.iter().map(|r| r.trials).sum();
+    eprintln!(
+        "gripsweep: tuned {} combinations with {trials} tuning runs in {:.1} s",
+        table.rows.len(),
+        started.elapsed().as_secs_f64()
+    );
+    Ok(csv)
 }
 
 pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
@@ -321,6 +369,14 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
         )));
     }
     let cell = pick_cell(&s, &a.pick)?;
+    // The cell runs with the gains `run` would give it: tune its one combination.
+    let mut one = s.clone();
+    one.axes.rate_hz = vec![cell.rate_hz];
+    one.axes.actuator = vec![cell.actuator];
+    one.axes.controller = vec![cell.controller.clone()];
+    let table = crate::tuning::tune(&one, &robot, None).map_err(RunError::input)?;
+    let mut s = s;
+    table.apply(&mut s);
     let mut rows: Vec<TraceRow> = Vec::new();
     let out = run_cell(
         &CellContext {

@@ -4,6 +4,7 @@
 pub mod cell;
 pub mod cli_robot;
 pub mod cli_run;
+pub mod floor;
 pub mod limits;
 pub mod matrix;
 pub mod metrics;
@@ -15,5 +16,6 @@ pub mod robot;
 pub mod run_folder;
 pub mod runner;
 pub mod scenario;
+pub mod tuning;
 
 pub use gripsweep_controllers as controllers;

@@ -3,7 +3,7 @@
 
 use clap::{Parser, Subcommand};
 use gripsweep::cli_robot::{self, CliError, RobotArgs};
-use gripsweep::cli_run::{self, CheckArgs, MergeArgs, ReportArgs, RunArgs, TraceArgs};
+use gripsweep::cli_run::{self, CheckArgs, MergeArgs, ReportArgs, RunArgs, TraceArgs, TuneArgs};
 use std::io::Write;
 use std::process::ExitCode;
 
@@ -21,6 +21,9 @@ enum Command {
     /// Run a scenario matrix (default: the embedded default scenario) and write cells.csv,
     /// manifest.json, summary.md/.csv and plots/ into the output folder.
     Run(RunArgs),
+    /// Tune every (law, control rate, actuator) the scenario needs, as `run` does before its
+    /// cells, and print the tuning table as CSV.
+    Tune(TuneArgs),
     /// Validate a scenario without running it; print the cell count and an estimated run time.
     Check(CheckArgs),
     /// Run one cell chosen by its axis values and write its time series as CSV.
@@ -42,6 +45,7 @@ fn main() -> ExitCode {
             cli_robot::run(args).map_err(|CliError(m)| (m, CliError::EXIT_CODE))
         }
         Command::Run(a) => cli_run::cmd_run(a).map_err(into_cli),
+        Command::Tune(a) => cli_run::cmd_tune(a).map_err(into_cli),
         Command::Check(a) => cli_run::cmd_check(a).map_err(into_cli),
         Command::Trace(a) => cli_run::cmd_trace(a).map_err(into_cli),
         Command::Report(a) => cli_run::cmd_report(a).map_err(into_cli),

@@ -91,3 +91,52 @@ impl LoadedRobot {
             .collect()
     }
 }
+
+/// The robot standing in its nominal posture (the facts' `[nominal]` joint angles, base frame
+/// level): where the feet are and how high the base frame stands above the ground they touch.
+#[derive(Clone, Debug, PartialEq)]
+pub struct NominalStance {
+    /// Base frame above the ground along the normal, m: the foot radius minus the mean height
+    /// of the foot-sphere centres in the base frame (the planner's nominal height).
+    pub height: f64,
+    /// Foot-sphere centres in the base frame, m, in the facts' order.
+    pub feet: Vec<[f64; 3]>,
+}
+
+/// The nominal stance of a model with its facts.
+pub fn nominal_stance(model: &Model, facts: &RobotFacts) -> NominalStance {
+    use gripsweep_controllers::algorithms::{Workspace, forward_kinematics, frame_pose};
+    let mut ws = Workspace::new(model);
+    let mut q = model.neutral();
+    let nb = if model.root == RootKind::Floating {
+        7
+    } else {
+        0
+    };
+    for (k, x) in facts.nominal_joints(model).into_iter().enumerate() {
+        q[nb + k] = x;
+    }
+    forward_kinematics(model, &mut ws, &q);
+    let feet: Vec<[f64; 3]> = facts
+        .feet
+        .frames
+        .iter()
+        .filter_map(|f| model.frame_index(f))
+        .map(|i| {
+            let p = frame_pose(model, &ws, i).trans;
+            [p.x, p.y, p.z]
+        })
+        .collect();
+    let mean_z = feet.iter().map(|f| f[2]).sum::<f64>() / feet.len().max(1) as f64;
+    NominalStance {
+        height: facts.feet.radius - mean_z,
+        feet,
+    }
+}
+
+impl LoadedRobot {
+    /// [`nominal_stance`] of this robot.
+    pub fn nominal_stance(&self) -> NominalStance {
+        nominal_stance(&self.model, &self.facts)
+    }
+}

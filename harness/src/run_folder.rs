@@ -23,6 +23,7 @@ fn tool_files() -> Vec<String> {
         TIMING_FILE,
         MANIFEST_FILE,
         crate::onset::ONSET_FILE,
+        crate::tuning::GAINS_FILE,
         crate::report::SUMMARY_MD,
         crate::report::SUMMARY_CSV,
     ]

@@ -2,11 +2,10 @@
 //! (flushed and synced, so a killed run loses nothing), resume without losing or doubling a
 //! cell, deterministic shards, and `merge` of shard folders into what one process would give.
 
-use crate::cell::{CellContext, CellOutcome, run_cell, run_cell_with_plan};
+use crate::cell::{CellContext, CellOutcome, run_cell_with_plan};
 use crate::matrix::{Cell, expand, shard};
 use crate::metrics::{CellMetrics, CellStatus};
 use crate::planner::Gait;
-use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
 use crate::run_folder::{
     FolderState, check_replaceable, compare_inputs, folder_state, input_entry, read_manifest,
@@ -63,6 +62,9 @@ pub struct RunOptions {
     pub quiet: bool,
     /// Skip the report (tests and shards).
     pub no_report: bool,
+    /// Reuse this tuning table (`gains.csv` of an earlier run or of `gripsweep tune --out`)
+    /// instead of tuning; it must match the scenario's robot files, plant settings and laws.
+    pub gains_from: Option<PathBuf>,
 }
 
 #[derive(Clone, Debug)]
@@ -395,35 +397,10 @@ fn write_manifest(dir: &Path, m: &Value) -> Result<(), String> {
     std::fs::rename(&tmp, &p).map_err(|e| format!("{}: {e}", p.display()))
 }
 
-/// The apparent slip of feet that do not move, for this scenario's plant settings: the robot
-/// standing still on flat ground (μ = 1, ideal actuators, stiff PD at the plant rate) for the
-/// scenario's duration; its mean stance-phase slip is the floor below which no difference
-/// between laws means anything.
+/// The apparent slip of feet that do not move, for this scenario's robot and plant settings
+/// (joints locked by the engine, no controller; see [`crate::floor`]).
 pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
-    let mut standing = s.clone();
-    standing.gait = Gait::Stand;
-    standing.axes.controller = vec!["stiff-pd".into()];
-    let cell = Cell {
-        index: 0,
-        slope_deg: 0.0,
-        mu: 1.0,
-        rate_hz: (1.0 / s.plant.dt).round(),
-        actuator: ActuatorKind::Ideal,
-        controller: "stiff-pd".into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-    };
-    let out = run_cell(
-        &CellContext {
-            scenario: &standing,
-            robot,
-        },
-        &cell,
-        None,
-    );
-    out.metrics.slip_mean_mm
+    crate::floor::slip_floor(s, robot)
 }
 
 /// The inputs that shape a cell, by role, each with its path and SHA-256 (manifest `inputs`).
@@ -487,6 +464,26 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
             )));
         }
     };
+    // Gains next (a reused table that does not fit is refused before anything is written): a
+    // table given with --gains-from, the folder's own on --resume, or a fresh tuning.
+    let own_table = out.join(crate::tuning::GAINS_FILE);
+    let table = if let Some(p) = &opts.gains_from {
+        crate::tuning::read_table(p, s, &robot).map_err(RunError::input)?
+    } else if resuming && own_table.is_file() {
+        crate::tuning::read_table(&own_table, s, &robot).map_err(RunError::input)?
+    } else {
+        if !opts.quiet {
+            eprintln!(
+                "gripsweep: tuning {} (law, rate, actuator) combinations",
+                crate::tuning::combos(s).len()
+            );
+        }
+        crate::tuning::tune(s, &robot, threads).map_err(RunError::input)?
+    };
+    let gains_csv = table.to_csv();
+    let mut tuned = s.clone();
+    table.apply(&mut tuned);
+    let s = &tuned;
     std::fs::create_dir_all(out).map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
     let _lock = crate::run_folder::lock(out)?;
     let state = folder_state(out);
@@ -564,6 +561,21 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     }
     man["inputs"] = inputs;
     man["slip_floor_mm"] = json!(floor);
+    // The tuning table is one more input of the run: written with the folder, hashed here.
+    std::fs::write(out.join(crate::tuning::GAINS_FILE), &gains_csv)
+        .map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
+    man["gains_sha256"] = json!(sha256_hex(&gains_csv));
+    if man.get("slip_locked_mm").is_none() {
+        man["slip_locked_mm"] = json!(crate::floor::locked_slip(s, &robot));
+    }
+    let implausible = floor.is_nan() || floor > crate::floor::FLOOR_BOUND_MM;
+    man["slip_floor_implausible"] = json!(implausible);
+    if implausible {
+        eprintln!(
+            "gripsweep: warning: the slip floor is {floor:.3} mm per stance phase, above the plausible {} mm (locked joints should not creep); no table ranks the laws on slip",
+            crate::floor::FLOOR_BOUND_MM
+        );
+    }
     if s.onset.is_some() {
         let n = crate::onset::groups(s)
             .into_iter()
@@ -897,6 +909,13 @@ pub fn merge(
             shards[0].0.display()
         );
         compare_inputs(&what, &first_inputs, &m["inputs"]).map_err(RunError::input)?;
+        if m["gains_sha256"] != shards[0].1["gains_sha256"] {
+            return Err(RunError::input(format!(
+                "{}: ran with other gains (gains.csv) than {}; tune once and pass the table to every shard with --gains-from",
+                d.display(),
+                shards[0].0.display()
+            )));
+        }
         if *kk != k {
             return Err(RunError::input(format!(
                 "{}: a shard of {kk}, the others of {k}",
@@ -1068,6 +1087,12 @@ pub fn merge(
     }
     sort_rows(&mut all_rows);
     write_sorted(&out.join(CELLS_FILE), &head, &all_rows).map_err(RunError::other)?;
+    // Every shard ran with the same tuning table (checked above): the joined run's is that one.
+    let gains = shards[0].0.join(crate::tuning::GAINS_FILE);
+    if gains.is_file() {
+        std::fs::copy(&gains, out.join(crate::tuning::GAINS_FILE))
+            .map_err(|e| RunError::other(format!("{}: {e}", gains.display())))?;
+    }
     sort_timing(&mut all_timing, &all_rows);
     write_sorted(&out.join(TIMING_FILE), &timing_head, &all_timing).map_err(RunError::other)?;
     if let Some(rows) = onset_rows {

@@ -13,6 +13,7 @@ use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
 use gripsweep_controllers::laws::{LawSettings, law_names};
 use serde::Deserialize;
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 /// Largest gait length (m) or period (s) accepted.
@@ -115,22 +116,96 @@ pub struct PlantFile {
     pub joint_limits: Option<bool>,
 }
 
-#[derive(Clone, Debug, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct LawsFile {
-    /// The controllers believe μ̂ = scale × the cell's μ.
-    pub mu_estimate_scale: Option<f64>,
-    pub stiff_kp: Option<f64>,
-    pub stiff_kd: Option<f64>,
-    pub joint_kp: Option<f64>,
-    pub joint_kd: Option<f64>,
-    pub task_kp: Option<f64>,
-    pub task_kd: Option<f64>,
-    pub tangent_weight: Option<f64>,
-    pub normal_weight: Option<f64>,
-    pub torque_weight: Option<f64>,
-    pub cone_margin: Option<f64>,
-    pub min_normal_force: Option<f64>,
+/// `[laws]`: `mu_estimate_scale` and one table per registered law (`[laws.<name>]`) with only
+/// that law's fields (see [`law_fields`]), optionally per control rate
+/// (`[laws.<name>.at_rate.<Hz>]`). Kept as a raw table so that every unknown name is reported
+/// with the law's own allowed fields.
+pub type LawsFile = toml::Table;
+
+/// The fields `[laws.<name>]` accepts for a law: (field, is a feedback gain, may be zero).
+pub fn law_fields(law: &str) -> &'static [(&'static str, bool, bool)] {
+    const STIFF: &[(&str, bool, bool)] = &[("kp", true, false), ("kd", true, true)];
+    const LEAN: &[(&str, bool, bool)] = &[
+        ("task_kp", true, true),
+        ("task_kd", true, true),
+        ("joint_kp", true, true),
+        ("joint_kd", true, true),
+    ];
+    const GRIP: &[(&str, bool, bool)] = &[
+        ("task_kp", true, true),
+        ("task_kd", true, true),
+        ("joint_kp", true, true),
+        ("joint_kd", true, true),
+        ("tangent_weight", false, false),
+        ("normal_weight", false, true),
+        ("torque_weight", false, false),
+    ];
+    const GRIP_LOAD: &[(&str, bool, bool)] = &[
+        ("task_kp", true, true),
+        ("task_kd", true, true),
+        ("joint_kp", true, true),
+        ("joint_kd", true, true),
+        ("tangent_weight", false, false),
+        ("normal_weight", false, true),
+        ("torque_weight", false, false),
+        ("load_floor_share", false, false),
+    ];
+    const CONE: &[(&str, bool, bool)] = &[
+        ("task_kp", true, true),
+        ("task_kd", true, true),
+        ("joint_kp", true, true),
+        ("joint_kd", true, true),
+        ("tangent_weight", false, false),
+        ("normal_weight", false, true),
+        ("torque_weight", false, false),
+        ("load_floor_share", false, false),
+        ("cone_margin", false, true),
+        ("min_normal_force", false, true),
+    ];
+    match law {
+        "stiff-pd" => STIFF,
+        "id-lean" => LEAN,
+        "id-grip" => GRIP,
+        "id-grip-load" => GRIP_LOAD,
+        "cone-margin" => CONE,
+        _ => &[],
+    }
+}
+
+/// Set one validated `[laws.<name>]` field on a law's settings.
+fn apply_law_field(law: &str, set: &mut LawSettings, field: &str, v: f64) {
+    match (law, field) {
+        ("stiff-pd", "kp") => set.stiff_kp = v,
+        ("stiff-pd", "kd") => set.stiff_kd = v,
+        (_, "task_kp") => {
+            set.base_kp = v;
+            set.orient_kp = v;
+            set.posture_kp = v;
+        }
+        (_, "task_kd") => {
+            set.base_kd = v;
+            set.orient_kd = v;
+            set.posture_kd = v;
+        }
+        (_, "joint_kp") => set.joint_kp = v,
+        (_, "joint_kd") => set.joint_kd = v,
+        (_, "tangent_weight") => set.tangent_weight = v,
+        (_, "normal_weight") => set.normal_weight = v,
+        (_, "torque_weight") => set.torque_weight = v,
+        (_, "load_floor_share") => set.load_floor_share = v,
+        (_, "cone_margin") => set.cone_margin = v,
+        (_, "min_normal_force") => set.min_normal_force = v,
+        _ => {}
+    }
+}
+
+/// One validated `[laws.<name>]` (or `[laws.<name>.at_rate.<Hz>]`) table.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LawTable {
+    pub law: String,
+    /// `None`: every rate; `Some(hz)`: that control rate only (applied after the general one).
+    pub rate_hz: Option<f64>,
+    pub fields: Vec<(String, f64)>,
 }
 
 #[derive(Clone, Debug, Default, Deserialize)]
@@ -218,8 +293,16 @@ pub struct Scenario {
     pub gait: Gait,
     pub body_height: f64,
     pub plant: PlantSettings,
+    /// The laws' default settings; a cell's are [`Scenario::law_settings_for`].
     pub laws: LawSettings,
     pub mu_estimate_scale: f64,
+    /// The validated `[laws.<name>]` tables, in file order (general before per-rate).
+    pub law_tables: Vec<LawTable>,
+    /// Gains found by the tuner (or read from a tuning table), by [`gain_key`]; a cell whose
+    /// key is here runs with these settings.
+    pub tuned: BTreeMap<String, LawSettings>,
+    /// True when `gait.body_height` was derived from the robot's nominal posture.
+    pub body_height_derived: bool,
     pub axes: Axes,
     pub noise: NoiseFile,
     pub falls: FallsFile,
@@ -348,14 +431,6 @@ impl Scenario {
         }
 
         let g = &file.gait;
-        let positive = |field: &str, v: Option<f64>, default: f64| -> Result<f64, ScenarioError> {
-            let v = v.unwrap_or(default);
-            if v.is_finite() && v > 0.0 {
-                Ok(v)
-            } else {
-                Err(fail(field, format!("{v}: allowed: a number > 0")))
-            }
-        };
         // Gait lengths (m) and periods (s): > 0 and at most MAX_GAIT_NUMBER, far beyond any
         // legged robot, so the planner's arithmetic stays finite.
         let positive_gait =
@@ -370,12 +445,42 @@ impl Scenario {
                     ))
                 }
             };
-        let body_height = positive_gait("gait.body_height", g.body_height, 0.30)?;
+        // Geometry defaults come from the robot's nominal stance height h, never from the demo
+        // robot: body height h; step h/5, swing height h/6, weight-shift amplitude h/10 (for a
+        // 0.30 m stance these are the values the demo study was built with: 0.06, 0.05,
+        // 0.03 m). The crawl's margin, when not given, the planner derives from the robot's
+        // support triangles (planner::CRAWL_MARGIN_SHARE).
+        let needs_robot = g.body_height.is_none()
+            || g.step_length.is_none()
+            || g.swing_height.is_none()
+            || g.amplitude.is_none();
+        let h_nom = if needs_robot {
+            let robot = match &robot_path {
+                None => LoadedRobot::demo(),
+                Some(p) => LoadedRobot::from_facts_file(p),
+            }
+            .map_err(|e| fail("robot", e))?;
+            let h = robot.nominal_stance().height;
+            if !(h.is_finite() && h > 0.0) {
+                return Err(fail(
+                    "gait.body_height",
+                    format!(
+                        "not given, and the robot's nominal posture puts the feet {:.3} m above the base frame, so no stance height can be derived; set it",
+                        -h
+                    ),
+                ));
+            }
+            h
+        } else {
+            f64::NAN
+        };
+        let body_height_derived = g.body_height.is_none();
+        let body_height = positive_gait("gait.body_height", g.body_height, h_nom)?;
         let gait = match g.kind.as_str() {
             "stand" => Gait::Stand,
             "crawl" => Gait::Crawl {
-                step_length: positive_gait("gait.step_length", g.step_length, 0.06)?,
-                swing_height: positive_gait("gait.swing_height", g.swing_height, 0.05)?,
+                step_length: positive_gait("gait.step_length", g.step_length, h_nom / 5.0)?,
+                swing_height: positive_gait("gait.swing_height", g.swing_height, h_nom / 6.0)?,
                 cycle_period: positive_gait("gait.cycle_period", g.cycle_period, 3.2)?,
                 body_height,
                 margin: match g.margin {
@@ -406,13 +511,13 @@ impl Scenario {
                 },
             },
             "weight-shift" => Gait::WeightShift {
-                amplitude: positive_gait("gait.amplitude", g.amplitude, 0.03)?,
+                amplitude: positive_gait("gait.amplitude", g.amplitude, h_nom / 10.0)?,
                 period: positive_gait("gait.period", g.period, 2.0)?,
                 body_height,
             },
             "trot" => Gait::Trot {
-                step_length: positive_gait("gait.step_length", g.step_length, 0.06)?,
-                swing_height: positive_gait("gait.swing_height", g.swing_height, 0.05)?,
+                step_length: positive_gait("gait.step_length", g.step_length, h_nom / 5.0)?,
+                swing_height: positive_gait("gait.swing_height", g.swing_height, h_nom / 6.0)?,
                 cycle_period: positive_gait("gait.cycle_period", g.cycle_period, 0.6)?,
                 body_height,
             },
@@ -423,80 +528,6 @@ impl Scenario {
                 ));
             }
         };
-
-        let mut laws = LawSettings::default();
-        let l = &file.laws;
-        let mu_estimate_scale = positive("laws.mu_estimate_scale", l.mu_estimate_scale, 1.0)?;
-        let set = |field: &str,
-                   v: Option<f64>,
-                   slot: &mut f64,
-                   allow_zero: bool|
-         -> Result<(), ScenarioError> {
-            if let Some(v) = v {
-                if !(v.is_finite() && (v > 0.0 || (allow_zero && v == 0.0))) {
-                    return Err(fail(
-                        field,
-                        format!(
-                            "{v}: allowed: a number {}",
-                            if allow_zero { "≥ 0" } else { "> 0" }
-                        ),
-                    ));
-                }
-                *slot = v;
-            }
-            Ok(())
-        };
-        set("laws.stiff_kp", l.stiff_kp, &mut laws.stiff_kp, false)?;
-        set("laws.stiff_kd", l.stiff_kd, &mut laws.stiff_kd, true)?;
-        set("laws.joint_kp", l.joint_kp, &mut laws.joint_kp, true)?;
-        set("laws.joint_kd", l.joint_kd, &mut laws.joint_kd, true)?;
-        if let Some(kp) = l.task_kp {
-            let mut v = 0.0;
-            set("laws.task_kp", Some(kp), &mut v, true)?;
-            laws.base_kp = v;
-            laws.orient_kp = v;
-            laws.posture_kp = v;
-        }
-        if let Some(kd) = l.task_kd {
-            let mut v = 0.0;
-            set("laws.task_kd", Some(kd), &mut v, true)?;
-            laws.base_kd = v;
-            laws.orient_kd = v;
-            laws.posture_kd = v;
-        }
-        set(
-            "laws.tangent_weight",
-            l.tangent_weight,
-            &mut laws.tangent_weight,
-            false,
-        )?;
-        set(
-            "laws.normal_weight",
-            l.normal_weight,
-            &mut laws.normal_weight,
-            true,
-        )?;
-        set(
-            "laws.torque_weight",
-            l.torque_weight,
-            &mut laws.torque_weight,
-            false,
-        )?;
-        set(
-            "laws.min_normal_force",
-            l.min_normal_force,
-            &mut laws.min_normal_force,
-            true,
-        )?;
-        if let Some(m) = l.cone_margin {
-            if !(m.is_finite() && (0.0..1.0).contains(&m)) {
-                return Err(fail(
-                    "laws.cone_margin",
-                    format!("{m}: allowed: 0 ≤ margin < 1"),
-                ));
-            }
-            laws.cone_margin = m;
-        }
 
         let a = &file.axes;
         let nonempty = |field: &str, len: usize| -> Result<(), ScenarioError> {
@@ -673,6 +704,9 @@ impl Scenario {
                 return Err(fail("axes.controller", format!("'{c}' appears twice")));
             }
         }
+        let laws = LawSettings::default();
+        let (mu_estimate_scale, law_tables) = parse_law_tables(&file.laws, &controller, &rate_hz)
+            .map_err(|(field, msg)| fail(&field, msg))?;
         let n = &file.noise;
         for (field, v) in [
             ("noise.joint_angle", n.joint_angle),
@@ -785,6 +819,9 @@ impl Scenario {
             plant,
             laws,
             mu_estimate_scale,
+            law_tables,
+            tuned: BTreeMap::new(),
+            body_height_derived,
             axes: Axes {
                 slope_deg,
                 mu,
@@ -854,5 +891,183 @@ impl Axes {
         ]
         .iter()
         .try_fold(1usize, |n, l| n.checked_mul(*l))
+    }
+}
+
+/// The key of one (law, control rate, actuator) combination in [`Scenario::tuned`].
+pub fn gain_key(law: &str, rate_hz: f64, actuator: ActuatorKind) -> String {
+    format!("{law}|{rate_hz}|{}", actuator.name())
+}
+
+/// Validate `[laws]`: `mu_estimate_scale` and `[laws.<name>]` tables. Errors are (field, message).
+fn parse_law_tables(
+    table: &toml::Table,
+    controllers: &[String],
+    rates: &[f64],
+) -> Result<(f64, Vec<LawTable>), (String, String)> {
+    let mut mu_scale = 1.0;
+    let mut out = Vec::new();
+    let number = |field: &str, v: &toml::Value| -> Result<f64, (String, String)> {
+        match v {
+            toml::Value::Float(x) => Ok(*x),
+            toml::Value::Integer(i) => Ok(*i as f64),
+            _ => Err((field.to_string(), format!("{v}: allowed: a number"))),
+        }
+    };
+    let names = law_names();
+    for (key, value) in table {
+        if key == "mu_estimate_scale" {
+            let v = number("laws.mu_estimate_scale", value)?;
+            if !(v.is_finite() && v > 0.0) {
+                return Err((
+                    "laws.mu_estimate_scale".into(),
+                    format!("{v}: allowed: a number > 0"),
+                ));
+            }
+            mu_scale = v;
+            continue;
+        }
+        let field = format!("laws.{key}");
+        if !names.contains(&key.as_str()) {
+            return Err((
+                field,
+                format!(
+                    "unknown field; allowed: mu_estimate_scale and one table per law: {}",
+                    names.join(", ")
+                ),
+            ));
+        }
+        if !controllers.iter().any(|c| c == key) {
+            return Err((
+                field,
+                format!(
+                    "settings for '{key}', which `axes.controller` does not list ({})",
+                    controllers.join(", ")
+                ),
+            ));
+        }
+        let toml::Value::Table(t) = value else {
+            return Err((field, "must be a table ([laws.<name>])".into()));
+        };
+        let allowed = law_fields(key);
+        let fields_of = |prefix: &str, t: &toml::Table, nested: bool| {
+            let mut fields = Vec::new();
+            for (f, v) in t {
+                let fname = format!("{prefix}.{f}");
+                if nested && f == "at_rate" {
+                    continue;
+                }
+                let Some(&(_, _, zero_ok)) = allowed.iter().find(|(n, _, _)| n == f) else {
+                    let mut list: Vec<&str> = allowed.iter().map(|(n, _, _)| *n).collect();
+                    if nested {
+                        list.push("at_rate");
+                    }
+                    return Err((
+                        fname,
+                        format!("unknown field for {key}; allowed: {}", list.join(", ")),
+                    ));
+                };
+                let x = number(&fname, v)?;
+                let ok = x.is_finite() && (x > 0.0 || (zero_ok && x == 0.0));
+                if !ok {
+                    return Err((
+                        fname,
+                        format!(
+                            "{x}: allowed: a number {}",
+                            if zero_ok { "≥ 0" } else { "> 0" }
+                        ),
+                    ));
+                }
+                if *f == "cone_margin" && x >= 1.0 {
+                    return Err((fname, format!("{x}: allowed: 0 ≤ margin < 1")));
+                }
+                fields.push((f.clone(), x));
+            }
+            Ok(fields)
+        };
+        out.push(LawTable {
+            law: key.clone(),
+            rate_hz: None,
+            fields: fields_of(&field, t, true)?,
+        });
+        if let Some(at) = t.get("at_rate") {
+            let afield = format!("{field}.at_rate");
+            let toml::Value::Table(at) = at else {
+                return Err((
+                    afield,
+                    "must be a table of rates ([laws.<name>.at_rate.<Hz>])".into(),
+                ));
+            };
+            for (hz, sub) in at {
+                let rfield = format!("{afield}.{hz}");
+                let rate: f64 = hz
+                    .parse()
+                    .map_err(|_| (rfield.clone(), "not a control rate in Hz".to_string()))?;
+                if !rates.contains(&rate) {
+                    return Err((
+                        rfield,
+                        format!(
+                            "{rate} Hz is not in `axes.rate_hz` ({})",
+                            rates
+                                .iter()
+                                .map(|r| r.to_string())
+                                .collect::<Vec<_>>()
+                                .join(", ")
+                        ),
+                    ));
+                }
+                let toml::Value::Table(sub) = sub else {
+                    return Err((rfield, "must be a table".into()));
+                };
+                out.push(LawTable {
+                    law: key.clone(),
+                    rate_hz: Some(rate),
+                    fields: fields_of(&rfield, sub, false)?,
+                });
+            }
+        }
+    }
+    Ok((mu_scale, out))
+}
+
+impl Scenario {
+    /// A law's settings at a control rate before tuning: the defaults, then the law's
+    /// `[laws.<name>]` fields, then its `at_rate` fields for this rate.
+    pub fn law_base(&self, law: &str, rate_hz: f64) -> LawSettings {
+        let mut set = self.laws.clone();
+        for pass_rate in [None, Some(rate_hz)] {
+            for t in &self.law_tables {
+                if t.law == law && t.rate_hz == pass_rate {
+                    for (f, v) in &t.fields {
+                        apply_law_field(law, &mut set, f, *v);
+                    }
+                }
+            }
+        }
+        set
+    }
+
+    /// Whether the scenario pins any feedback gain of this law at this rate (tuning is then
+    /// off for it).
+    pub fn gains_pinned(&self, law: &str, rate_hz: f64) -> bool {
+        let gains: Vec<&str> = law_fields(law)
+            .iter()
+            .filter(|(_, g, _)| *g)
+            .map(|(n, _, _)| *n)
+            .collect();
+        self.law_tables.iter().any(|t| {
+            t.law == law
+                && t.rate_hz.is_none_or(|r| r == rate_hz)
+                && t.fields.iter().any(|(f, _)| gains.contains(&f.as_str()))
+        })
+    }
+
+    /// The settings a cell of this law, rate and actuator runs with: tuned gains when the
+    /// tuner (or a reused tuning table) set them, otherwise [`Scenario::law_base`].
+    pub fn law_settings_for(&self, law: &str, rate_hz: f64, actuator: ActuatorKind) -> LawSettings {
+        self.tuned
+            .get(&gain_key(law, rate_hz, actuator))
+            .cloned()
+            .unwrap_or_else(|| self.law_base(law, rate_hz))
     }
 }

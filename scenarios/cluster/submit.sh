@@ -73,7 +73,16 @@ done
 mkdir -p "$root/logs"
 root=$(cd "$root" && pwd)
 
+# Tune once (a no-op when RUN_ROOT/gains.csv exists); every shard task reads that table.
+tune_opts=(--parsable --job-name=gripsweep-tune
+    --output="$root/logs/tune.job-%j.log"
+    --export="ALL,GRIPSWEEP_BIN=$bin")
+[ -z "$cpus" ] || tune_opts+=(--cpus-per-task="$cpus")
+tune_out=$(sbatch "${tune_opts[@]}" "$here/tune.sbatch" "$scenario" "$root")
+tune_id=${tune_out%%;*}
+
 array_opts=(--parsable --array="$indices" --job-name=gripsweep-shard
+    --dependency="afterok:$tune_id" --kill-on-invalid-dep=yes
     --output="$root/logs/shard-%a.job-%A.log"
     --export="ALL,GRIPSWEEP_BIN=$bin")
 [ -z "$cpus" ] || array_opts+=(--cpus-per-task="$cpus")
@@ -87,6 +96,7 @@ join_out=$(sbatch --parsable --job-name=gripsweep-join \
     "$here/join.sbatch" "$k" "$root")
 join_id=${join_out%%;*}
 
+echo "tune_job=$tune_id"
 echo "array_job=$array_id"
 echo "join_job=$join_id"
 cat >&2 <<EOF

@@ -396,6 +396,31 @@ impl Plant {
         }
     }
 
+    /// Hold every joint at its present position with the engine's implicit joint motors (a
+    /// critically damped position servo of natural frequency `hz`, acceleration-based so it
+    /// does not depend on the link inertias, solved inside the constraint solver): the robot
+    /// stands as one rigid body with no controller in the loop (the slip floor).
+    pub fn lock_joints(&mut self, hz: f64) {
+        let omega = 2.0 * std::f64::consts::PI * hz;
+        let link_ids = self.link_ids.clone();
+        let kinds = self.joint_kinds.clone();
+        let mb = self.multibody_mut();
+        for (k, kind) in kinds.iter().enumerate() {
+            let Some(link) = mb.link_mut(link_ids[k + 1]) else {
+                continue;
+            };
+            let coords = link.joint.coords();
+            let (axis, target) = match kind {
+                JointKind::Revolute => (JointAxis::AngX, coords[3]),
+                JointKind::Prismatic => (JointAxis::LinX, coords[0]),
+            };
+            link.joint
+                .data
+                .set_motor_model(axis, MotorModel::AccelerationBased)
+                .set_motor_position(axis, target, omega * omega, 2.0 * omega);
+        }
+    }
+
     /// Put the robot in state (q, v) in the model's conventions.
     pub fn set_state(&mut self, q: &DVector<f64>, v: &DVector<f64>) {
         let nj = self.joint_kinds.len();

@@ -132,7 +132,8 @@ pub fn write_report(dir: &Path) -> Result<ReportSummary, String> {
     }
 
     let md_path = dir.join(SUMMARY_MD);
-    let md = markdown::render(&study, &computed, &planned);
+    let mut md = markdown::render(&study, &computed, &planned);
+    md.push_str(&gains_section(dir, run.manifest.slip_floor_mm));
     std::fs::write(&md_path, md)
         .map_err(|e| format!("{}: cannot write: {e}", md_path.display()))?;
     let csv_path = dir.join(SUMMARY_CSV);
@@ -148,4 +149,78 @@ pub fn write_report(dir: &Path) -> Result<ReportSummary, String> {
         controllers: study.controllers().to_vec(),
         slip_floor_mm: run.manifest.slip_floor_mm,
     })
+}
+
+/// The summary's closing section: the gains every law ran with (the run folder's tuning table),
+/// and a warning when the slip floor is implausible.
+fn gains_section(dir: &Path, floor: f64) -> String {
+    use std::fmt::Write as _;
+    let mut out = String::new();
+    if floor > crate::floor::FLOOR_BOUND_MM {
+        let _ = writeln!(
+            out,
+            "\n## Warning: implausible slip floor\n\nThe robot with its joints locked by the engine crept {floor:.3} mm per stance phase, above the plausible {} mm: the plant's contact model cannot resolve slip differences here, so no table above ranks the laws on slip (every law ties).\n",
+            crate::floor::FLOOR_BOUND_MM
+        );
+    }
+    let path = dir.join(crate::tuning::GAINS_FILE);
+    let Ok(text) = std::fs::read_to_string(&path) else {
+        return out;
+    };
+    let mut reader = csv::ReaderBuilder::new().from_reader(text.as_bytes());
+    let Ok(head) = reader.headers().cloned() else {
+        return out;
+    };
+    let col = |name: &str| head.iter().position(|h| h == name);
+    let cols = [
+        ("law", "law"),
+        ("rate_hz", "rate, Hz"),
+        ("actuator", "actuator"),
+        ("s_critical", "s_c"),
+        ("s_chosen", "s"),
+        ("stiff_kp", "kp"),
+        ("stiff_kd", "kd"),
+        ("task_kp", "task kp, 1/s²"),
+        ("task_kd", "task kd, 1/s"),
+        ("joint_kp", "joint kp"),
+        ("joint_kd", "joint kd"),
+        ("joint_rms_deg", "joint RMS on the tuning motion, °"),
+        ("reason", "why"),
+    ];
+    let _ = writeln!(
+        out,
+        "\n## Gains every law ran with\n\nFrom `{}` (tuned for this robot, rate and actuator before the cells; see the README, *Tuning*). s: gain scale on the law's settings (stiffness × s, damping × √s); s_c: the critical scale; kp in N·m/rad, kd in N·m·s/rad.\n",
+        crate::tuning::GAINS_FILE
+    );
+    let _ = writeln!(
+        out,
+        "| {} |\n|{}",
+        cols.iter().map(|c| c.1).collect::<Vec<_>>().join(" | "),
+        " --- |".repeat(cols.len())
+    );
+    for rec in reader.records().flatten() {
+        let cells: Vec<String> = cols
+            .iter()
+            .map(|(name, _)| {
+                let v = col(name).and_then(|k| rec.get(k)).unwrap_or("");
+                let bound = col("s_critical_bound")
+                    .and_then(|k| rec.get(k))
+                    .unwrap_or("");
+                let mark = match (*name, bound) {
+                    ("s_critical", "at-upper") => "≥ ",
+                    ("s_critical", "below-lower") => "< ",
+                    _ => "",
+                };
+                let text = match v.parse::<f64>() {
+                    Ok(x) if *name != "rate_hz" && x.abs() >= 100.0 => format!("{x:.0}"),
+                    Ok(x) if *name != "rate_hz" => format!("{x:.3}"),
+                    _ if v.is_empty() => "—".to_string(),
+                    _ => v.to_string(),
+                };
+                format!("{mark}{text}")
+            })
+            .collect();
+        let _ = writeln!(out, "| {} |", cells.join(" | "));
+    }
+    out
 }

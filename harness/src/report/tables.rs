@@ -597,6 +597,17 @@ pub struct Study<'a> {
 }
 
 impl<'a> Study<'a> {
+    /// The floor slip verdicts are judged against: above the plausibility bound
+    /// ([`crate::floor::FLOOR_BOUND_MM`]) it is infinite, so every law ties and nothing is
+    /// ranked on slip.
+    pub fn rank_floor(&self) -> f64 {
+        if self.floor > crate::floor::FLOOR_BOUND_MM {
+            f64::INFINITY
+        } else {
+            self.floor
+        }
+    }
+
     pub fn new(run: &'a Run) -> Study<'a> {
         let axes = Axes::from_cells(&run.cells);
         let keys = run
@@ -696,7 +707,7 @@ impl<'a> Study<'a> {
                         .filter(|(_, e)| e.rankable())
                         .map(|(c, _)| (c, seed_means(self.select(c, &sel), measure)))
                         .collect();
-                    judge_paired(&laws, self.floor)
+                    judge_paired(&laws, self.rank_floor())
                 });
                 PivotRow {
                     value,
@@ -901,7 +912,7 @@ impl<'a> Study<'a> {
                     .filter(|(_, e)| e.rankable())
                     .map(|(c, _)| (c, seed_means(per_ctrl[c].iter().copied(), SLIP)))
                     .collect();
-                let verdict = judge_paired(&eligible, self.floor);
+                let verdict = judge_paired(&eligible, self.rank_floor());
                 Condition {
                     idx,
                     entries,
