@@ -255,7 +255,7 @@ fn bad_tuning_input_is_refused_with_file_and_field() {
         std::fs::write(
             &p,
             format!(
-                "name = \"bad\"\nrobot = \"{}\"\nduration = 4.0\n{laws}\n[axes]\ncontroller = [\"stiff-pd\"]\n",
+                "name = \"bad\"\nrobot = \"{}\"\nduration = 9.0\n{laws}\n[axes]\ncontroller = [\"stiff-pd\"]\n",
                 robots.join(robot).display()
             ),
         )

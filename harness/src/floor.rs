@@ -120,4 +120,3 @@ pub fn locked_slip(s: &Scenario, robot: &LoadedRobot) -> f64 {
     let end = Vec3::new(q[0], q[1], q[2]);
     acc.finish(&end, &slope.uphill(), 0.0, nj).slip_mean_mm
 }
-

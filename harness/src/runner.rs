@@ -464,26 +464,12 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
             )));
         }
     };
-    // Gains next (a reused table that does not fit is refused before anything is written): a
-    // table given with --gains-from, the folder's own on --resume, or a fresh tuning.
-    let own_table = out.join(crate::tuning::GAINS_FILE);
-    let table = if let Some(p) = &opts.gains_from {
-        crate::tuning::read_table(p, s, &robot).map_err(RunError::input)?
-    } else if resuming && own_table.is_file() {
-        crate::tuning::read_table(&own_table, s, &robot).map_err(RunError::input)?
-    } else {
-        if !opts.quiet {
-            eprintln!(
-                "gripsweep: tuning {} (law, rate, actuator) combinations",
-                crate::tuning::combos(s).len()
-            );
-        }
-        crate::tuning::tune(s, &robot, threads).map_err(RunError::input)?
+    // A tuning table given with --gains-from that does not fit is refused before anything is
+    // written.
+    let given_table = match &opts.gains_from {
+        Some(p) => Some(crate::tuning::read_table(p, s, &robot).map_err(RunError::input)?),
+        None => None,
     };
-    let gains_csv = table.to_csv();
-    let mut tuned = s.clone();
-    table.apply(&mut tuned);
-    let s = &tuned;
     std::fs::create_dir_all(out).map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
     let _lock = crate::run_folder::lock(out)?;
     let state = folder_state(out);
@@ -553,6 +539,29 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         }
         Value::Null
     };
+    // Gains, under the lock (a second writer is refused at once, not after a tuning): the
+    // table given with --gains-from, the folder's own on --resume (its inputs were compared
+    // above), or a fresh tuning.
+    let own_table = out.join(crate::tuning::GAINS_FILE);
+    let table = match given_table {
+        Some(t) => t,
+        None if resuming && own_table.is_file() => {
+            crate::tuning::read_table(&own_table, s, &robot).map_err(RunError::input)?
+        }
+        None => {
+            if !opts.quiet {
+                eprintln!(
+                    "gripsweep: tuning {} (law, rate, actuator) combinations",
+                    crate::tuning::combos(s).len()
+                );
+            }
+            crate::tuning::tune(s, &robot, threads).map_err(RunError::input)?
+        }
+    };
+    let gains_csv = table.to_csv();
+    let mut tuned = s.clone();
+    table.apply(&mut tuned);
+    let s = &tuned;
     if floor.is_nan() {
         floor = slip_floor(s, &robot);
     }
