@@ -10,7 +10,9 @@ mod input;
 mod long_csv;
 mod look;
 mod markdown;
+mod page;
 mod plots;
+pub mod replay;
 mod stats;
 mod tables;
 
