@@ -419,11 +419,16 @@ fn watch_list(out: &mut String, study: &Study, computed: &Computed, source: Opti
             rows.push((i, "fell"));
         }
     }
+    // Most severe first, so the cap never hides a fall behind a run that merely slipped.
+    rows.sort_by(|a, b| {
+        let (x, y) = (severity(&run.cells[a.0]), severity(&run.cells[b.0]));
+        y.0.cmp(&x.0).then(y.1.total_cmp(&x.1)).then(a.0.cmp(&b.0))
+    });
     let total = rows.len();
     rows.truncate(MAX_WATCH_ROWS);
     out.push_str("<section id=\"watch\"><h2>Runs worth watching</h2>\n<p>The worst run of each \
 condition (a fall before a run that did not control the robot, before the largest slip) and every \
-other fall. Each command, run where the scenario file is, writes the run's trace CSV and beside it \
+other fall, most severe first. Each command, run where the scenario file is, writes the run's trace CSV and beside it \
 a replay page (<code>.html</code>) that opens in any browser.</p>\n");
     if total > rows.len() {
         let _ = writeln!(
