@@ -299,7 +299,8 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
             m.name()
         );
         for a in &axes {
-            let _ = write!(out, "<th class=\"num\">{}</th>", esc(a.label()));
+            let class = if *a == Axis::Actuator { "" } else { "num" };
+            let _ = write!(out, "<th class=\"{class}\">{}</th>", esc(a.label()));
         }
         for c in study.controllers() {
             let _ = write!(out, "<th class=\"num\">{}</th>", esc(c));
@@ -312,11 +313,17 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
             out.push_str("<tr>");
             for a in &axes {
                 let i = cond.idx[*a as usize];
+                let raw = study.axes.value_raw(*a, i);
+                let shown = match a {
+                    Axis::Slope => format!("{raw}°"),
+                    Axis::Mu => raw.clone(),
+                    _ => study.axes.value_text(*a, i),
+                };
                 let _ = write!(
                     out,
                     "<td class=\"n\" data-v=\"{}\">{}</td>",
-                    esc(&study.axes.value_raw(*a, i)),
-                    esc(&study.axes.value_text(*a, i))
+                    esc(&raw),
+                    esc(&shown)
                 );
             }
             let fixed: Vec<(Axis, usize)> =

@@ -62,7 +62,7 @@ fn skeleton(robot: &LoadedRobot) -> Skeleton {
         segments.push([j.parent, k + 1]);
     }
     let mut spheres = Vec::new();
-    for (fi, f) in model.frames.iter().enumerate() {
+    for f in &model.frames {
         let off = f.placement.trans;
         let at = if off.norm() > 1e-9 {
             points.push((f.body, off));
@@ -71,7 +71,6 @@ fn skeleton(robot: &LoadedRobot) -> Skeleton {
         } else {
             f.body
         };
-        let _ = fi;
         // Sphere collision shapes centred on the link frame (the feet's are drawn from the
         // facts' radius at the trace's ground points instead).
         if robot.facts.feet.frames.contains(&f.name) {
@@ -96,6 +95,11 @@ fn skeleton(robot: &LoadedRobot) -> Skeleton {
         .map(|(k, j)| (j.x_tree.trans.y.atan2(j.x_tree.trans.x), k + 1))
         .collect();
     hips.sort_by(|a, b| a.0.total_cmp(&b.0));
+    // With an outline of three or more joints, the trunk is that outline, not spokes from its
+    // origin.
+    if hips.len() >= 3 {
+        segments.retain(|s| !(s[0] == 0 && hips.iter().any(|h| h.1 == s[1])));
+    }
     Skeleton {
         points,
         segments,
@@ -240,10 +244,10 @@ The same numbers are in <code>{}</code>, one row per frame.</p></noscript>\n",
     html.push_str(&format!(
         r#"<section id="stage" data-frames="{frames}">
 <div class="views">
-<figure><canvas id="view-side" width="560" height="340" aria-label="side view"></canvas>
-<figcaption>side view (x up the slope, z up)</figcaption></figure>
-<figure><canvas id="view-top" width="560" height="340" aria-label="view from above"></canvas>
-<figcaption>from above (x up the slope, y left)</figcaption></figure>
+<figure><canvas id="view-side" width="540" height="330" aria-label="side view"></canvas>
+<figcaption>side view (x up the slope to the right, z up)</figcaption></figure>
+<figure><canvas id="view-top" width="540" height="330" aria-label="view from above"></canvas>
+<figcaption>from above (x up the slope to the right, y up)</figcaption></figure>
 </div>
 <div class="controls">
 <button id="play" type="button">play</button>
@@ -260,10 +264,10 @@ force, coloured by its friction use ‖f<sub>t</sub>‖/(μ f<sub>n</sub>) at μ
 filled foot: planned stance; ringed foot: a stance foot sliding faster than {mark} mm/s.</p>
 </section>
 <section class="plots">
-<figure><canvas id="plot-err" width="560" height="150"></canvas><figcaption>base position error against the plan (mm)</figcaption></figure>
-<figure><canvas id="plot-slip" width="560" height="150"></canvas><figcaption>slip speed of each stance foot (mm/s; blank in swing)</figcaption></figure>
-<figure><canvas id="plot-use" width="560" height="150"></canvas><figcaption>friction use of each foot (1 = the cone's edge)</figcaption></figure>
-<figure><canvas id="plot-tau" width="560" height="150"></canvas><figcaption>largest joint torque as a share of its limit (1 = the limit)</figcaption></figure>
+<figure><canvas id="plot-err" width="540" height="150"></canvas><figcaption>base position error against the plan (mm)</figcaption></figure>
+<figure><canvas id="plot-slip" width="540" height="150"></canvas><figcaption>slip speed of each stance foot (mm/s; blank in swing)</figcaption></figure>
+<figure><canvas id="plot-use" width="540" height="150"></canvas><figcaption>friction use of each foot (1 = the cone's edge)</figcaption></figure>
+<figure><canvas id="plot-tau" width="540" height="150"></canvas><figcaption>largest joint torque as a share of its limit (1 = the limit)</figcaption></figure>
 </section>
 <p class="muted">One frame per trace row ({dt} s apart); the CSV <code>{csv}</code> holds the same numbers.</p>
 "#,
@@ -343,7 +347,7 @@ function plot(id,series,refLine){var c=document.getElementById(id),g=c.getContex
  function X(i){return L+W*(N>1?i/(N-1):0);}function Y(v){return T+H*(1-(v-lo)/(hi-lo));}
  return function(k){g.fillStyle='#fffefa';g.fillRect(0,0,c.width,c.height);g.strokeStyle=rule;g.lineWidth=1;g.strokeRect(L,T,W,H);
   g.fillStyle='#6f685b';g.font='11px sans-serif';g.fillText(hi.toPrecision(2),2,T+9);g.fillText('0',28,T+H);
-  g.fillText(String(F[N-1].t)+' s',c.width-60,c.height-4);
+  g.fillText(Number(F[N-1].t).toFixed(2)+' s',c.width-50,c.height-4);
   if(refLine){g.setLineDash([5,4]);g.strokeStyle='#8c7f68';g.beginPath();g.moveTo(L,Y(refLine));g.lineTo(L+W,Y(refLine));g.stroke();g.setLineDash([]);}
   series.forEach(function(s,si){g.strokeStyle=palette[si%palette.length];g.lineWidth=1.3;g.beginPath();var pen=false;
    s.forEach(function(v,i){if(v===null||!isFinite(v)){pen=false;return;}var x=X(i),y=Y(Math.min(v,hi));if(pen)g.lineTo(x,y);else g.moveTo(x,y);pen=true;});g.stroke();});
