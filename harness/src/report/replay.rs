@@ -302,6 +302,7 @@ const REPLAY_SCRIPT: &str = r#"
 (function(){
 var D=JSON.parse(document.getElementById('replay-data').textContent);
 var F=D.frames,N=F.length,cur=0,playing=false,last=null,acc=0;
+if(!N){document.getElementById('stage').insertAdjacentHTML('afterbegin','<p class="card amber">No frames to replay: the run ended before its first trace row.</p>');return;}
 var ink='#242a31',ghost='rgba(47,75,92,0.22)',rule='#b5ab98';
 function useColour(u){if(u===null||!(u>=0))return '#a8a296';return u<0.5?'#5a8a3c':(u<0.9?'#d9a02b':'#c4573a');}
 // bounds over every frame (robot and plan), per view, so the scale never jumps
