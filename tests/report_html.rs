@@ -189,7 +189,13 @@ const HEADER: &str = "cell_id,index,slope_deg,mu,rate_hz,actuator,controller,mas
 #[test]
 fn report_html_default_study_shape_within_budget() {
     let dir = TempDir::new("report");
-    let ctrls = ["stiff-pd", "id-lean", "id-grip", "id-grip-load", "cone-margin"];
+    let ctrls = [
+        "stiff-pd",
+        "id-lean",
+        "id-grip",
+        "id-grip-load",
+        "cone-margin",
+    ];
     let mut csv_text = format!("{HEADER}\n");
     let mut index = 0u64;
     // The default study's matrix: 4 slopes × 5 μ × 3 rates × 3 actuators × 5 laws, 1 seed.
@@ -244,8 +250,9 @@ fn report_html_default_study_shape_within_budget() {
             static_part.contains(&format!("class=\"card fell law-verdict\" data-law=\"{c}\""))
                 || static_part
                     .contains(&format!("class=\"card held law-verdict\" data-law=\"{c}\""))
-                || static_part
-                    .contains(&format!("class=\"card amber law-verdict\" data-law=\"{c}\"")),
+                || static_part.contains(&format!(
+                    "class=\"card amber law-verdict\" data-law=\"{c}\""
+                )),
             "verdict card for {c}"
         );
     }
@@ -253,6 +260,16 @@ fn report_html_default_study_shape_within_budget() {
         .find("data-figure=\"outcome_map\"")
         .expect("outcome map");
     assert!(static_part[map..].trim_start().contains("<svg"));
+    // The outcome map over rate × actuator: 5 laws × 3 actuators rows; stiff-pd at 100 Hz
+    // with the ideal actuator fell in 2 slopes × 2 μ = 4 of its 20 runs.
+    let regime = &static_part[static_part
+        .find("id=\"table-regime-map\"")
+        .expect("regime map")..];
+    let regime = &regime[..regime.find("</table>").expect("end of regime map")];
+    assert_eq!(regime.matches("<tr><td>").count(), 5 * 3);
+    assert!(regime.contains(
+        "<tr><td>stiff-pd</td><td>ideal</td><td><span class=\"tally t-held\">16</span><span class=\"tally t-fell\">4</span></td>"
+    ), "{regime}");
     // The falls are listed with a command that makes their replay.
     assert!(static_part.contains("gripsweep trace --pick slope_deg=20 --pick mu=0.2"));
     // 4 × 2 conditions with falls × 4 laws each, 6 of them listed as the worst of their

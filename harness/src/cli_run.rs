@@ -397,10 +397,27 @@ pub fn replay_path(csv: &Path, off: bool) -> Option<PathBuf> {
 /// (blank for a planned-swing foot); the law's and the cell's status.
 pub fn trace_header(robot: &crate::robot::LoadedRobot) -> Vec<String> {
     let mut head: Vec<String> = [
-        "t_s", "base_x_m", "base_y_m", "base_z_m", "base_qx", "base_qy", "base_qz", "base_qw",
-        "base_vx_m_s", "base_vy_m_s", "base_vz_m_s", "base_wx_rad_s", "base_wy_rad_s",
-        "base_wz_rad_s", "plan_base_x_m", "plan_base_y_m", "plan_base_z_m", "plan_base_qx",
-        "plan_base_qy", "plan_base_qz", "plan_base_qw",
+        "t_s",
+        "base_x_m",
+        "base_y_m",
+        "base_z_m",
+        "base_qx",
+        "base_qy",
+        "base_qz",
+        "base_qw",
+        "base_vx_m_s",
+        "base_vy_m_s",
+        "base_vz_m_s",
+        "base_wx_rad_s",
+        "base_wy_rad_s",
+        "base_wz_rad_s",
+        "plan_base_x_m",
+        "plan_base_y_m",
+        "plan_base_z_m",
+        "plan_base_qx",
+        "plan_base_qy",
+        "plan_base_qz",
+        "plan_base_qw",
     ]
     .iter()
     .map(|s| s.to_string())

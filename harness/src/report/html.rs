@@ -64,13 +64,14 @@ fn entry_cell(e: &Entry, scale: f64) -> String {
     }
     let others = e.not_ok().saturating_sub(e.fell);
     if others > 0 {
-        let _ = write!(
-            t,
-            " <span class=\"tally t-amber\">{others} not ok</span>"
-        );
+        let _ = write!(t, " <span class=\"tally t-amber\">{others} not ok</span>");
     }
     if e.beyond > 0 {
-        let _ = write!(t, " <span class=\"tally t-beyond\">{} beyond</span>", e.beyond);
+        let _ = write!(
+            t,
+            " <span class=\"tally t-beyond\">{} beyond</span>",
+            e.beyond
+        );
     }
     t.push_str("</td>");
     t
@@ -101,7 +102,9 @@ fn verdict_html(study: &Study, v: &Verdict) -> String {
 fn place(study: &Study, idx: &[usize; 7]) -> String {
     format!(
         "{} μ {}",
-        study.axes.value_text(Axis::Slope, idx[Axis::Slope as usize]),
+        study
+            .axes
+            .value_text(Axis::Slope, idx[Axis::Slope as usize]),
         study.axes.value_raw(Axis::Mu, idx[Axis::Mu as usize])
     )
 }
@@ -230,7 +233,11 @@ plan's own limit.</p>",
                 esc(&list_places(fell_in, 8))
             );
         }
-        let wins: Vec<String> = r.wins.iter().map(|w| place(study, &conds[*w].idx)).collect();
+        let wins: Vec<String> = r
+            .wins
+            .iter()
+            .map(|w| place(study, &conds[*w].idx))
+            .collect();
         if wins.is_empty() {
             let _ = write!(
                 s,
@@ -253,7 +260,12 @@ plan's own limit.</p>",
 }
 
 /// The figures, outcome map first, each SVG read back from `plots/` and inlined.
-fn figures_section(out: &mut String, dir: &Path, planned: &Planned) -> Result<(), String> {
+fn figures_section(
+    out: &mut String,
+    dir: &Path,
+    study: &Study,
+    planned: &Planned,
+) -> Result<(), String> {
     out.push_str("<section id=\"figures\"><h2>Figures</h2>\n");
     let mut figs: Vec<&str> = planned.figures.iter().map(|f| f.stem()).collect();
     figs.sort_by_key(|s| *s != figures::OUTCOME_STEM);
@@ -261,21 +273,77 @@ fn figures_section(out: &mut String, dir: &Path, planned: &Planned) -> Result<()
         let path = dir.join(super::PLOTS_DIR).join(format!("{stem}.svg"));
         let svg = std::fs::read_to_string(&path)
             .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
-        let body = svg
-            .find("<svg")
-            .map(|i| &svg[i..])
-            .unwrap_or(svg.as_str());
+        let body = svg.find("<svg").map(|i| &svg[i..]).unwrap_or(svg.as_str());
         let _ = writeln!(
             out,
             "<figure class=\"fig\" id=\"fig-{stem}\" data-figure=\"{stem}\">{body}<figcaption>{}</figcaption></figure>",
             esc(figures::describe(stem))
         );
     }
+    regime_map(out, study);
     for s in &planned.skipped {
         let _ = writeln!(out, "<p class=\"muted\">Not drawn — {}.</p>", esc(s));
     }
     out.push_str("</section>\n");
     Ok(())
+}
+
+/// The outcome map over control rate × actuator model: per law a grid whose cells count the
+/// runs of each outcome class ([`figures::OUTCOME_CLASSES`], classed by
+/// [`figures::outcome_class`]), pooled over slope, μ and the other axes. Drawn as a table so it
+/// reads without JavaScript and in print; skipped when both axes have a single value.
+fn regime_map(out: &mut String, study: &Study) {
+    let (n_rate, n_act) = (study.axes.len(Axis::Rate), study.axes.len(Axis::Actuator));
+    if n_rate < 2 && n_act < 2 {
+        return;
+    }
+    const CHIPS: [&str; 5] = ["t-held", "t-amber", "t-beyond", "t-fell", "t-none"];
+    let n_ctrl = study.controllers().len();
+    let mut counts = vec![[0usize; 5]; n_ctrl * n_rate * n_act];
+    for (i, c) in study.run.cells.iter().enumerate() {
+        let (key, ctrl) = study.place_of(i);
+        let k = (ctrl * n_rate + key[Axis::Rate as usize]) * n_act + key[Axis::Actuator as usize];
+        counts[k][figures::outcome_class(c.status.name(), c.beyond_plan_limit)] += 1;
+    }
+    out.push_str("<h3 id=\"regime-map\">Outcomes by control rate × actuator model</h3>\n<p>Each cell counts the runs of one law at one control rate and actuator model (all slopes, μ and seeds): ");
+    for (k, name) in figures::OUTCOME_CLASSES.iter().enumerate() {
+        let _ = write!(
+            out,
+            "<span class=\"tally {}\">n</span>{} ",
+            CHIPS[k],
+            esc(name)
+        );
+    }
+    out.push_str("(zeros left out).</p>\n<div class=\"scroll\"><table id=\"table-regime-map\"><thead><tr><th>law</th><th>actuator</th>");
+    for r in 0..n_rate {
+        let _ = write!(
+            out,
+            "<th>{}</th>",
+            esc(&study.axes.value_text(Axis::Rate, r))
+        );
+    }
+    out.push_str("</tr></thead><tbody>\n");
+    for (c, name) in study.controllers().iter().enumerate() {
+        for a in 0..n_act {
+            let _ = write!(
+                out,
+                "<tr><td>{}</td><td>{}</td>",
+                esc(name),
+                esc(&study.axes.value_text(Axis::Actuator, a))
+            );
+            for r in 0..n_rate {
+                out.push_str("<td>");
+                for (k, n) in counts[(c * n_rate + r) * n_act + a].iter().enumerate() {
+                    if *n > 0 {
+                        let _ = write!(out, "<span class=\"tally {}\">{n}</span>", CHIPS[k]);
+                    }
+                }
+                out.push_str("</td>");
+            }
+            out.push_str("</tr>\n");
+        }
+    }
+    out.push_str("</tbody></table></div>\n");
 }
 
 /// Per condition: each law's slip, base tracking and torque, and the verdict.
@@ -326,8 +394,10 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
                     esc(&shown)
                 );
             }
-            let fixed: Vec<(Axis, usize)> =
-                Axis::ALL.iter().map(|a| (*a, cond.idx[*a as usize])).collect();
+            let fixed: Vec<(Axis, usize)> = Axis::ALL
+                .iter()
+                .map(|a| (*a, cond.idx[*a as usize]))
+                .collect();
             for c in 0..study.controllers().len() {
                 let e = if *m == super::tables::SLIP {
                     cond.entries[c]
@@ -512,7 +582,11 @@ fn tuning_section(out: &mut String, dir: &Path) {
     let text = match crate::limits::read_text_bounded(&path, MAX_GAINS_BYTES, "tuning table") {
         Ok(t) => t,
         Err(e) => {
-            let _ = writeln!(out, "<p class=\"muted\">Not shown: {}</p></section>", esc(&e));
+            let _ = writeln!(
+                out,
+                "<p class=\"muted\">Not shown: {}</p></section>",
+                esc(&e)
+            );
             return;
         }
     };
@@ -627,7 +701,7 @@ pub fn render(
     );
     out.push_str("<nav class=\"toc\"><a href=\"#verdict\">Verdict</a><br><a href=\"#figures\">Figures</a><br><a href=\"#conditions\">Per condition</a><br><a href=\"#watch\">Runs worth watching</a><br><a href=\"#outcomes\">Run outcomes</a><br><a href=\"#tuning\">Gains</a><br><a href=\"#inputs\">Limits, floor and inputs</a></nav>\n");
     verdicts(&mut out, study, computed);
-    figures_section(&mut out, dir, planned)?;
+    figures_section(&mut out, dir, study, planned)?;
     conditions_table(&mut out, study, computed);
     watch_list(&mut out, study, computed, source);
     outcomes_table(&mut out, study, computed);

@@ -20,8 +20,8 @@ mod tables;
 
 use std::path::{Path, PathBuf};
 
-pub use html::{REPORT_HTML, trace_command};
 pub use figures::{OUTCOME_CLASSES, outcome_class};
+pub use html::{REPORT_HTML, trace_command};
 pub use input::{
     CELLS_FILE, Cell, MANIFEST_FILE, Manifest, Metric, ONSET_FILE, OnsetRow, PlanLimit, Run,
     Status, TIMING_FILE, Timing, read_manifest, read_run,
