@@ -130,15 +130,27 @@ fn verdicts(out: &mut String, study: &Study, computed: &Computed) {
         .find(|(m, _)| *m == super::tables::SLIP)
         .map(|(_, v)| v.clone())
         .unwrap_or_default();
+    let seeds = {
+        let mut v: Vec<u64> = study.run.cells.iter().map(|c| c.seed).collect();
+        v.sort_unstable();
+        v.dedup();
+        v.len()
+    };
     let _ = writeln!(
         out,
         "<section id=\"verdict\"><h2>Verdict</h2>\n<p>A law <em>wins</em> a condition when its \
 mean slip is lower than every other law's by more than the slip floor ({} mm per stance phase) \
 <em>and</em> a paired t-test over seeds (two-sided, α = {}) finds the difference; otherwise the \
 laws tie. Only runs that held and controlled the robot are ranked, and no condition beyond the \
-plan's own limit.</p>",
+plan's own limit.{}</p>",
         num(study.floor),
-        super::tables::PAIRED_ALPHA
+        super::tables::PAIRED_ALPHA,
+        if seeds < 2 {
+            " This run has a single seed, so no difference can be tested: every ranked condition \
+is a tie."
+        } else {
+            ""
+        }
     );
     for (c, name) in study.controllers().iter().enumerate() {
         let counts = &computed.statuses[c];
