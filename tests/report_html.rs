@@ -229,7 +229,7 @@ fn report_html_default_study_shape_within_budget() {
     fs::write(dir.0.join("cells.csv"), csv_text).expect("cells.csv");
     fs::write(
         dir.0.join("manifest.json"),
-        "{\"scenario_name\": \"default\", \"slip_floor_mm\": 0.05, \"tool_version\": \"0.1.0\", \"seeds\": 1, \"scenario_source\": \"scenarios/default.toml\", \"inputs\": {\"scenario\": {\"path\": \"scenarios/default.toml\", \"sha256\": \"00\"}}}",
+        "{\"scenario_name\": \"default\", \"slip_floor_mm\": 0.05, \"tool_version\": \"0.1.0\", \"seeds\": 1, \"axes\": {\"slope_deg\": [0, 10, 20, 25], \"mu\": [0.2, 0.4, 0.6, 0.8, 1.0], \"rate_hz\": [100, 250, 1000], \"actuator\": [\"ideal\", \"open-current\", \"torque-loop\"], \"controller\": [], \"mass_scale\": [1], \"com_shift_mm\": [0], \"sensor_noise\": [0]}, \"scenario_source\": \"scenarios/default.toml\", \"inputs\": {\"scenario\": {\"path\": \"scenarios/default.toml\", \"sha256\": \"00\"}}}",
     )
     .expect("manifest");
     let summary = write_report(&dir.0).expect("report");
@@ -271,13 +271,24 @@ fn report_html_default_study_shape_within_budget() {
         "<tr><td>stiff-pd</td><td>ideal</td><td><span class=\"tally t-held\">16</span><span class=\"tally t-fell\">4</span></td>"
     ), "{regime}");
     // The falls are listed with a command that makes their replay.
-    assert!(static_part.contains("gripsweep trace --pick slope_deg=20 --pick mu=0.2"));
-    // 4 × 2 conditions with falls × 4 laws each, 6 of them listed as the worst of their
-    // condition: every fall is in the list (below the cap).
-    let falls = static_part.matches("<tr><td>fell</td>").count()
-        + static_part
-            .matches("<tr><td>worst of its condition</td><td>")
-            .count();
-    assert!(falls >= 4 * 2 * 4, "{falls} rows");
+    // Axes with one value in the scenario (mass scale, CoM shift, noise, seed) are left out.
+    assert!(
+        static_part.contains(
+            "gripsweep trace --pick slope_deg=25 --pick mu=0.2 --pick rate_hz=100 --pick actuator=ideal --pick controller=cone-margin --out replay-"
+        ),
+        "trace command in {}",
+        &static_part[static_part.find("gripsweep trace").unwrap_or(0)..][..300]
+    );
+    // 2 slopes × 2 μ × 9 regimes × 4 laws = 144 falls, more than the list's cap of 60: the
+    // list is full of falls (most severe first) and says how many it left out.
+    let watch = &static_part[static_part.find("id=\"table-watch\"").expect("watch list")..];
+    let watch = &watch[..watch.find("</table>").expect("end of watch list")];
+    assert_eq!(watch.matches("<tr><td>").count(), 60);
+    assert_eq!(watch.matches("<td>fell <span").count(), 60);
+    let left_out = 144 + 180 - 2 * 2 * 9 - 60;
+    assert!(
+        static_part.contains(&format!("{left_out} more runs are not listed")),
+        "left-out count"
+    );
     eprintln!("report.html for the default study's shape: {size} bytes");
 }

@@ -428,8 +428,15 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
     out.push_str("</section>\n");
 }
 
-/// The `gripsweep trace` command that replays one run of this folder.
-pub fn trace_command(scenario_source: Option<&str>, c: &super::input::Cell) -> String {
+/// The `gripsweep trace` command that replays one run of this folder. `keep[k]`: whether to
+/// name the k-th axis of `matrix::AXIS_NAMES` (an axis with one value in the run can be left
+/// out: `trace` takes an axis's first value when it is not picked); the controller is always
+/// named.
+pub fn trace_command(
+    scenario_source: Option<&str>,
+    c: &super::input::Cell,
+    keep: &[bool; 9],
+) -> String {
     let mut cmd = String::from("gripsweep trace");
     if let Some(src) = scenario_source {
         let _ = write!(cmd, " {}", shell_word(src));
@@ -445,8 +452,10 @@ pub fn trace_command(scenario_source: Option<&str>, c: &super::input::Cell) -> S
         ("sensor_noise", format!("{}", c.sensor_noise)),
         ("seed", format!("{}", c.seed)),
     ];
-    for (k, v) in picks {
-        let _ = write!(cmd, " --pick {}", shell_word(&format!("{k}={v}")));
+    for (i, (k, v)) in picks.into_iter().enumerate() {
+        if keep[i] || k == "controller" {
+            let _ = write!(cmd, " --pick {}", shell_word(&format!("{k}={v}")));
+        }
     }
     let _ = write!(cmd, " --out replay-{}.csv", c.id);
     cmd
@@ -466,7 +475,13 @@ fn shell_word(s: &str) -> String {
 
 /// The runs worth watching: per condition the worst run (a fall first, then the largest slip),
 /// then every other fall, each with the command that writes its replay.
-fn watch_list(out: &mut String, study: &Study, computed: &Computed, source: Option<&str>) {
+fn watch_list(
+    out: &mut String,
+    study: &Study,
+    computed: &Computed,
+    manifest: &serde_json::Value,
+    source: Option<&str>,
+) {
     let run = study.run;
     let severity = |c: &super::input::Cell| -> (u8, f64) {
         let s = if c.status.is_fall() {
@@ -515,6 +530,23 @@ fn watch_list(out: &mut String, study: &Study, computed: &Computed, source: Opti
     });
     let total = rows.len();
     rows.truncate(MAX_WATCH_ROWS);
+    // Axes the scenario gives more than one value (from the manifest, not from the rows: a
+    // shard may hold one value of an axis that has several); every axis when it is not known.
+    let keep: [bool; 9] = crate::matrix::AXIS_NAMES.map(|name| {
+        let n = if name == "seed" {
+            manifest
+                .get("seeds")
+                .and_then(|v| v.as_u64())
+                .map(|n| n as usize)
+        } else {
+            manifest
+                .get("axes")
+                .and_then(|a| a.get(name))
+                .and_then(|v| v.as_array())
+                .map(|v| v.len())
+        };
+        n.is_none_or(|n| n > 1)
+    });
     out.push_str("<section id=\"watch\"><h2>Runs worth watching</h2>\n<p>The worst run of each \
 condition (a fall before a run that did not control the robot, before the largest slip) and every \
 other fall, most severe first. Each command, run where the scenario file is, writes the run's trace CSV and beside it \
@@ -542,7 +574,7 @@ a replay page (<code>.html</code>) that opens in any browser.</p>\n");
                 format!(" <span class=\"muted\">— {}</span>", esc(&c.message))
             },
             num(c.metric(super::input::Metric::SlipMean)),
-            esc(&trace_command(source, c))
+            esc(&trace_command(source, c, &keep))
         );
     }
     out.push_str("</tbody></table></div></section>\n");
@@ -715,7 +747,7 @@ pub fn render(
     verdicts(&mut out, study, computed);
     figures_section(&mut out, dir, study, planned)?;
     conditions_table(&mut out, study, computed);
-    watch_list(&mut out, study, computed, source);
+    watch_list(&mut out, study, computed, &manifest, source);
     outcomes_table(&mut out, study, computed);
     tuning_section(&mut out, dir);
     inputs_section(&mut out, study, &manifest);
