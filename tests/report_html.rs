@@ -232,6 +232,14 @@ fn report_html_default_study_shape_within_budget() {
         "{\"scenario_name\": \"default\", \"slip_floor_mm\": 0.05, \"tool_version\": \"0.1.0\", \"seeds\": 1, \"axes\": {\"slope_deg\": [0, 10, 20, 25], \"mu\": [0.2, 0.4, 0.6, 0.8, 1.0], \"rate_hz\": [100, 250, 1000], \"actuator\": [\"ideal\", \"open-current\", \"torque-loop\"], \"controller\": [], \"mass_scale\": [1], \"com_shift_mm\": [0], \"sensor_noise\": [0]}, \"scenario_source\": \"scenarios/default.toml\", \"inputs\": {\"scenario\": {\"path\": \"scenarios/default.toml\", \"sha256\": \"00\"}}}",
     )
     .expect("manifest");
+    // A tuning table as the tuning step writes it (its columns as of this writing); the page
+    // shows it as written.
+    fs::write(
+        dir.0.join("gains.csv"),
+        "law,rate_hz,actuator,s_critical,s_critical_bound,s_chosen,stiff_kp,stiff_kd,task_kp,task_kd,joint_kp,joint_kd,base_rms_mm,joint_rms_deg,torque_limit_share,target_joint_rms_deg,trials,reason,inputs_sha256\n\
+stiff-pd,1000,ideal,1.5,upper,0.75,15000,22.5,,,,,3.1,0.02,0,0.5,9,margin 2,abc123\n",
+    )
+    .expect("gains.csv");
     let summary = write_report(&dir.0).expect("report");
     let path = dir.0.join(REPORT_HTML);
     assert!(summary.files.contains(&path));
@@ -271,6 +279,9 @@ fn report_html_default_study_shape_within_budget() {
         "<tr><td>stiff-pd</td><td>ideal</td><td><span class=\"tally t-held\">16</span><span class=\"tally t-fell\">4</span></td>"
     ), "{regime}");
     // The falls are listed with a command that makes their replay.
+    let gains = &static_part[static_part.find("id=\"table-gains\"").expect("gains table")..];
+    assert!(gains.contains("<th class=\"num\">stiff_kp</th>"));
+    assert!(gains.contains("<td>15000</td><td>22.5</td>"));
     // Axes with one value in the scenario (mass scale, CoM shift, noise, seed) are left out.
     assert!(
         static_part.contains(
