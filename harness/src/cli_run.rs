@@ -316,6 +316,12 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
         return Err(RunError::input("--every 0: allowed: 1 or more"));
     }
     let robot = s.load_robot().map_err(RunError::input)?;
+    if robot.model.nq_base() != 7 {
+        return Err(RunError::input(format!(
+            "{}: trace needs a floating-base robot",
+            robot.source
+        )));
+    }
     // One trace row holds every joint's angle and torque and every foot's forces: bound the
     // rows kept in memory.
     let rows_wanted = s.duration / s.plant.dt / a.every as f64;
@@ -335,12 +341,6 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
         &cell,
         Some((&mut rows, a.every)),
     );
-    if robot.model.nq_base() != 7 {
-        return Err(RunError::input(format!(
-            "{}: trace needs a floating-base robot",
-            robot.source
-        )));
-    }
     write_trace(&a.out, &robot, &rows, out.status.name()).map_err(RunError::other)?;
     let replay = replay_path(&a.out, a.no_replay);
     if let Some(page) = &replay {

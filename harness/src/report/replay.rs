@@ -24,6 +24,15 @@ use std::path::Path;
 /// own radius in 2 s.
 pub const SLIP_MARK_MM_S: f64 = 10.0;
 
+/// Most frames a replay page holds; a longer trace is shown every k-th row (k the least that
+/// fits), which keeps the page under about 10 MB whatever `--every` and the duration ask.
+pub const MAX_REPLAY_FRAMES: usize = 5000;
+
+/// Rows of a trace of `n` rows that the replay shows: every `stride(n)`-th, from the first.
+pub fn stride(n: usize) -> usize {
+    n.div_ceil(MAX_REPLAY_FRAMES).max(1)
+}
+
 /// The id of the element that holds the replay's data.
 pub const DATA_ID: &str = "replay-data";
 
@@ -135,9 +144,10 @@ pub fn replay_json(robot: &LoadedRobot, rows: &[TraceRow], info: &ReplayInfo) ->
     let (n, t1, t2) = slope.surface_frame(0.0, 0.0);
     let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
     let mut statuses: Vec<&str> = Vec::new();
-    let mut frames = Vec::with_capacity(rows.len());
+    let step = stride(rows.len());
+    let mut frames = Vec::with_capacity(rows.len().div_ceil(step));
     let mut xs = (f64::INFINITY, f64::NEG_INFINITY);
-    for r in rows {
+    for r in rows.iter().step_by(step) {
         let pts = pose_points(robot, &sk, &mut ws, &r.q);
         let ghost = pose_points(robot, &sk, &mut ws, &r.plan_q);
         for x in pts.iter().step_by(3).chain(ghost.iter().step_by(3)) {
@@ -200,7 +210,7 @@ pub fn replay_json(robot: &LoadedRobot, rows: &[TraceRow], info: &ReplayInfo) ->
         "robot": model.name,
         "slope_deg": info.slope_deg,
         "mu": info.mu,
-        "row_dt": info.row_dt,
+        "row_dt": info.row_dt * step as f64,
         "feet": robot.facts.feet.frames,
         "foot_radius": robot.facts.feet.radius,
         "surface": {"n": [n.x, n.y, n.z], "t1": [t1.x, t1.y, t1.z], "t2": [t2.x, t2.y, t2.z]},
@@ -222,6 +232,8 @@ pub fn write_replay(
     info: &ReplayInfo,
 ) -> Result<(), String> {
     let data = replay_json(robot, rows, info);
+    let step = stride(rows.len());
+    let n_frames = rows.len().div_ceil(step);
     let title = format!("gripsweep replay · {} · {}", info.cell_key, info.status);
     let mut html = page::open(&title, REPLAY_STYLE);
     html.push_str(&format!(
@@ -269,13 +281,18 @@ filled foot: planned stance; ringed foot: a stance foot sliding faster than {mar
 <figure><canvas id="plot-use" width="540" height="150"></canvas><figcaption>friction use of each foot (1 = the cone's edge)</figcaption></figure>
 <figure><canvas id="plot-tau" width="540" height="150"></canvas><figcaption>largest joint torque as a share of its limit (1 = the limit)</figcaption></figure>
 </section>
-<p class="muted">One frame per trace row ({dt} s apart); the CSV <code>{csv}</code> holds the same numbers.</p>
+<p class="muted">{per_row} ({dt} s apart); the CSV <code>{csv}</code> holds the same numbers.</p>
 "#,
-        frames = rows.len(),
-        last = rows.len().saturating_sub(1),
+        frames = n_frames,
+        last = n_frames.saturating_sub(1),
+        per_row = if step == 1 {
+            "One frame per trace row".to_string()
+        } else {
+            format!("One frame every {step} trace rows (at most {MAX_REPLAY_FRAMES} frames)")
+        },
         mu = info.mu,
         mark = SLIP_MARK_MM_S,
-        dt = info.row_dt,
+        dt = info.row_dt * step as f64,
         csv = esc(info.csv_name),
     ));
     html.push_str(&format!(
@@ -375,3 +392,22 @@ window.gripsweepReplay={show:show,frames:N,current:function(){return cur;}};
 show(0);
 })();
 "#;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn replay_stride_bounds_the_frames() {
+        for n in [0, 1, 799, 5000, 5001, 60_000, 200_000] {
+            let k = stride(n);
+            let frames = n.div_ceil(k);
+            assert!(frames <= MAX_REPLAY_FRAMES, "{n} rows → {frames} frames");
+            // The least stride that fits: one less would not.
+            if k > 1 {
+                assert!(n.div_ceil(k - 1) > MAX_REPLAY_FRAMES);
+            }
+        }
+        assert_eq!(stride(800), 1);
+    }
+}
