@@ -458,6 +458,8 @@ fn check_and_trace_work_on_a_small_scenario() {
         assert!(head.contains(col), "{col} not in {head}");
     }
     assert!(t.lines().count() > 300);
+    // Beside the CSV, its replay page (tests/report_html.rs checks its numbers).
+    assert!(d.join("trace.html").is_file());
     let o = run(&[
         "trace",
         sc.to_str().unwrap(),

@@ -37,14 +37,28 @@ pub struct CellOutcome {
     pub wall_s: f64,
 }
 
-/// One row of a time trace (`gripsweep trace`).
+/// One row of a time trace (`gripsweep trace`), taken after a plant step at time `t`.
 #[derive(Clone, Debug, Default)]
 pub struct TraceRow {
     pub t: f64,
+    /// The plant's state, model conventions (`q` with the base quaternion x y z w).
     pub q: Vec<f64>,
+    /// The base twist, model conventions: linear then angular velocity, base frame.
+    pub v_base: [f64; 6],
+    /// The plan's configuration at `t` (base pose and joint references).
+    pub plan_q: Vec<f64>,
     pub tau: Vec<f64>,
+    /// Measured ground force per foot, surface frame [normal, t1 (uphill), t2], N.
     pub foot_force: Vec<[f64; 3]>,
+    /// The law's predicted contact force per foot, same surface frame, N (zeros when the law
+    /// predicts none).
+    pub foot_predicted: Vec<[f64; 3]>,
+    /// Each foot's ground point (sphere centre − r n), world, m.
+    pub foot_pos: Vec<[f64; 3]>,
+    /// Tangential speed of each foot's contact point, m/s (a planned-swing foot's is its
+    /// swing speed; the trace writer leaves those blank).
     pub foot_slip: Vec<f64>,
+    /// The plan's stance flag per foot (at the control step that made this row's torques).
     pub stance: Vec<bool>,
     pub law_status: &'static str,
 }
@@ -340,11 +354,29 @@ fn simulate(
         if let Some((rows, every_n)) = trace.as_mut()
             && step % *every_n == 0
         {
+            let surface = |f: &crate::plant::FootReading, w: &Vec3| {
+                let (n, t1, t2) = slope.surface_frame(f.contact_point.x, f.contact_point.y);
+                [w.dot(&n), w.dot(&t1), w.dot(&t2)]
+            };
+            let predicted = law.predicted_forces();
             rows.push(TraceRow {
                 t: t + dt,
                 q: q.as_slice().to_vec(),
+                v_base: std::array::from_fn(|k| v[k]),
+                plan_q: reached.q.as_slice().to_vec(),
                 tau: applied.clone(),
                 foot_force: plant.feet().iter().map(|f| f.force_surface).collect(),
+                foot_predicted: plant
+                    .feet()
+                    .iter()
+                    .enumerate()
+                    .map(|(i, f)| predicted.get(i).map_or([0.0; 3], |w| surface(f, w)))
+                    .collect(),
+                foot_pos: plant
+                    .feet()
+                    .iter()
+                    .map(|f| [f.contact_point.x, f.contact_point.y, f.contact_point.z])
+                    .collect(),
                 foot_slip: plant
                     .feet()
                     .iter()

@@ -74,9 +74,14 @@ pub struct TraceArgs {
     /// Output CSV. Default: trace.csv.
     #[arg(long, default_value = "trace.csv")]
     pub out: PathBuf,
-    /// Write one row every N physics steps. Default: 10.
+    /// Write one row every N physics steps (N × plant.dt apart; 10 ms at the default 1 ms
+    /// step). Default: 10.
     #[arg(long, default_value_t = 10)]
     pub every: usize,
+    /// Do not write the replay page (by default `trace` writes, beside the CSV, the same
+    /// path with `.html`: a self-contained page that replays the cell).
+    #[arg(long)]
+    pub no_replay: bool,
 }
 
 #[derive(Args, Debug, Clone)]
@@ -359,6 +364,12 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
         return Err(RunError::input("--every 0: allowed: 1 or more"));
     }
     let robot = s.load_robot().map_err(RunError::input)?;
+    if robot.model.nq_base() != 7 {
+        return Err(RunError::input(format!(
+            "{}: trace needs a floating-base robot",
+            robot.source
+        )));
+    }
     // One trace row holds every joint's angle and torque and every foot's forces: bound the
     // rows kept in memory.
     let rows_wanted = s.duration / s.plant.dt / a.every as f64;
@@ -387,8 +398,32 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
         Some((&mut rows, a.every)),
     );
     write_trace(&a.out, &robot, &rows, out.status.name()).map_err(RunError::other)?;
+    let replay = replay_path(&a.out, a.no_replay);
+    if let Some(page) = &replay {
+        let csv_name = a
+            .out
+            .file_name()
+            .map(|n| n.to_string_lossy().to_string())
+            .unwrap_or_default();
+        crate::report::replay::write_replay(
+            page,
+            &robot,
+            &rows,
+            &crate::report::replay::ReplayInfo {
+                cell_id: &cell.id(),
+                cell_key: &cell.key(),
+                status: out.status.name(),
+                message: &out.message,
+                slope_deg: cell.slope_deg,
+                mu: cell.mu,
+                row_dt: a.every as f64 * s.plant.dt,
+                csv_name: &csv_name,
+            },
+        )
+        .map_err(RunError::other)?;
+    }
     Ok(format!(
-        "cell {} ({}): {}{}; {} rows in {}\n",
+        "cell {} ({}): {}{}; {} rows in {}{}\n",
         cell.id(),
         cell.key(),
         out.status.name(),
@@ -398,8 +433,84 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
             format!(" ({})", out.message)
         },
         rows.len(),
-        a.out.display()
+        a.out.display(),
+        replay
+            .map(|p| format!(", replay in {}", p.display()))
+            .unwrap_or_default()
     ))
+}
+
+/// Where `trace` writes its replay page: the CSV's path with `.html` (none with
+/// `--no-replay`, or when the CSV itself ends in `.html`).
+pub fn replay_path(csv: &Path, off: bool) -> Option<PathBuf> {
+    let page = csv.with_extension("html");
+    (!off && page != csv).then_some(page)
+}
+
+/// The trace CSV's header: time; the base pose and twist; the plan's base pose; per joint its
+/// angle, the plan's reference and the applied torque; per foot the plan's stance flag, its
+/// ground point, the measured and the law's predicted force (surface frame) and its slip speed
+/// (blank for a planned-swing foot); the law's and the cell's status.
+pub fn trace_header(robot: &crate::robot::LoadedRobot) -> Vec<String> {
+    let mut head: Vec<String> = [
+        "t_s",
+        "base_x_m",
+        "base_y_m",
+        "base_z_m",
+        "base_qx",
+        "base_qy",
+        "base_qz",
+        "base_qw",
+        "base_vx_m_s",
+        "base_vy_m_s",
+        "base_vz_m_s",
+        "base_wx_rad_s",
+        "base_wy_rad_s",
+        "base_wz_rad_s",
+        "plan_base_x_m",
+        "plan_base_y_m",
+        "plan_base_z_m",
+        "plan_base_qx",
+        "plan_base_qy",
+        "plan_base_qz",
+        "plan_base_qw",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    let joints = robot.model.joint_names();
+    head.extend(joints.iter().map(|j| format!("{j}_rad")));
+    head.extend(joints.iter().map(|j| format!("{j}_ref_rad")));
+    head.extend(joints.iter().map(|j| format!("{j}_torque_nm")));
+    for f in &robot.facts.feet.frames {
+        for c in TRACE_FOOT_COLUMNS {
+            head.push(format!("{f}_{c}"));
+        }
+    }
+    head.push("law_status".into());
+    head.push("cell_status".into());
+    head
+}
+
+/// Per-foot columns of the trace, in order.
+pub const TRACE_FOOT_COLUMNS: [&str; 11] = [
+    "stance",
+    "x_m",
+    "y_m",
+    "z_m",
+    "fn_n",
+    "ft1_n",
+    "ft2_n",
+    "pred_fn_n",
+    "pred_ft1_n",
+    "pred_ft2_n",
+    "slip_speed_mm_s",
+];
+
+/// A number as the trace writes it: Rust's shortest round-trip text (the replay embeds the
+/// same text, so both hold the same values bit for bit).
+pub fn trace_num(x: f64) -> String {
+    format!("{x}")
 }
 
 fn write_trace(
@@ -408,33 +519,30 @@ fn write_trace(
     rows: &[TraceRow],
     status: &str,
 ) -> Result<(), String> {
-    let mut head: Vec<String> = [
-        "t_s", "base_x_m", "base_y_m", "base_z_m", "base_qx", "base_qy", "base_qz", "base_qw",
-    ]
-    .iter()
-    .map(|s| s.to_string())
-    .collect();
-    let joints = robot.model.joint_names();
-    head.extend(joints.iter().map(|j| format!("{j}_rad")));
-    head.extend(joints.iter().map(|j| format!("{j}_torque_nm")));
-    for f in &robot.facts.feet.frames {
-        for c in ["stance", "fn_n", "ft1_n", "ft2_n", "slip_speed_mm_s"] {
-            head.push(format!("{f}_{c}"));
-        }
-    }
-    head.push("law_status".into());
-    head.push("cell_status".into());
+    let head = trace_header(robot);
+    let nj = robot.model.n_joints();
     let mut w = csv::Writer::from_path(path).map_err(|e| format!("{}: {e}", path.display()))?;
     w.write_record(&head)
         .map_err(|e| format!("{}: {e}", path.display()))?;
     for r in rows {
-        let mut rec: Vec<String> = vec![format!("{}", r.t)];
-        rec.extend(r.q.iter().map(|x| format!("{x}")));
-        rec.extend(r.tau.iter().map(|x| format!("{x}")));
+        let mut rec: Vec<String> = vec![trace_num(r.t)];
+        rec.extend(r.q[..7].iter().map(|x| trace_num(*x)));
+        rec.extend(r.v_base.iter().map(|x| trace_num(*x)));
+        rec.extend(r.plan_q[..7].iter().map(|x| trace_num(*x)));
+        rec.extend(r.q[7..7 + nj].iter().map(|x| trace_num(*x)));
+        rec.extend(r.plan_q[7..7 + nj].iter().map(|x| trace_num(*x)));
+        rec.extend(r.tau.iter().map(|x| trace_num(*x)));
         for i in 0..r.foot_force.len() {
             rec.push(if r.stance[i] { "1".into() } else { "0".into() });
-            rec.extend(r.foot_force[i].iter().map(|x| format!("{x}")));
-            rec.push(format!("{}", r.foot_slip[i] * 1e3));
+            rec.extend(r.foot_pos[i].iter().map(|x| trace_num(*x)));
+            rec.extend(r.foot_force[i].iter().map(|x| trace_num(*x)));
+            rec.extend(r.foot_predicted[i].iter().map(|x| trace_num(*x)));
+            // A swing foot's tangential speed is its swing, not a slip.
+            rec.push(if r.stance[i] {
+                trace_num(r.foot_slip[i] * 1e3)
+            } else {
+                String::new()
+            });
         }
         rec.push(r.law_status.to_string());
         rec.push(status.to_string());

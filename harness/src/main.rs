@@ -19,16 +19,17 @@ struct Cli {
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Run a scenario matrix (default: the embedded default scenario) and write cells.csv,
-    /// manifest.json, summary.md/.csv and plots/ into the output folder.
+    /// manifest.json, summary.md/.csv, report.html and plots/ into the output folder.
     Run(RunArgs),
     /// Tune every (law, control rate, actuator) the scenario needs, as `run` does before its
     /// cells, and print the tuning table as CSV.
     Tune(TuneArgs),
     /// Validate a scenario without running it; print the cell count and an estimated run time.
     Check(CheckArgs),
-    /// Run one cell chosen by its axis values and write its time series as CSV.
+    /// Run one cell chosen by its axis values and write its time series as CSV, and beside it a
+    /// self-contained HTML page that replays it.
     Trace(TraceArgs),
-    /// Rebuild summary.md, summary.csv and plots/ of a run folder from its cells.csv.
+    /// Rebuild summary.md, summary.csv, report.html and plots/ of a run folder from its cells.csv.
     Report(ReportArgs),
     /// Join the folders of a sharded run into the result an unsharded run gives.
     Merge(MergeArgs),

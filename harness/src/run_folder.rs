@@ -26,6 +26,7 @@ fn tool_files() -> Vec<String> {
         crate::tuning::GAINS_FILE,
         crate::report::SUMMARY_MD,
         crate::report::SUMMARY_CSV,
+        crate::report::REPORT_HTML,
     ]
     .iter()
     .map(|s| s.to_string())

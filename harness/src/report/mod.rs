@@ -1,22 +1,27 @@
 //! The report: reduces a finished run folder to tables for people (`summary.md`), the same
-//! numbers for machines (`summary.csv`) and figures (`plots/*.svg`, `plots/*.png`).
+//! numbers for machines (`summary.csv`), figures (`plots/*.svg`, `plots/*.png`) and the review
+//! sheet that holds them all in one file (`report.html`, see `html.rs`).
 //!
 //! It reads only the run's files (`cells.csv`, `manifest.json`, and `timing.csv` and
 //! `onset.csv` when present), so `gripsweep report DIR` rebuilds the same report from a copy
 //! of the folder on any machine. Data flows one way: input → tables → (markdown, csv, plots).
 
 mod figures;
+mod html;
 mod input;
 mod long_csv;
 mod look;
 mod markdown;
+mod page;
 mod plots;
+pub mod replay;
 mod stats;
 mod tables;
 
 use std::path::{Path, PathBuf};
 
 pub use figures::{OUTCOME_CLASSES, outcome_class};
+pub use html::{REPORT_HTML, trace_command};
 pub use input::{
     CELLS_FILE, Cell, MANIFEST_FILE, Manifest, Metric, ONSET_FILE, OnsetRow, PlanLimit, Run,
     Status, TIMING_FILE, Timing, read_manifest, read_run,
@@ -139,7 +144,12 @@ pub fn write_report(dir: &Path) -> Result<ReportSummary, String> {
     let csv_path = dir.join(SUMMARY_CSV);
     long_csv::write(&csv_path, &study, &computed)?;
 
-    let mut files = vec![md_path, csv_path];
+    let html_path = dir.join(REPORT_HTML);
+    let html = html::render(dir, &study, &computed, &planned)?;
+    std::fs::write(&html_path, html)
+        .map_err(|e| format!("{}: cannot write: {e}", html_path.display()))?;
+
+    let mut files = vec![md_path, csv_path, html_path];
     files.extend(images.iter().map(|i| i.path.clone()));
     Ok(ReportSummary {
         files,

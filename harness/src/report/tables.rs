@@ -638,6 +638,12 @@ impl<'a> Study<'a> {
         &self.axes.controllers
     }
 
+    /// The condition (value index on each axis of [`Axis::ALL`]) and the controller index of
+    /// `run.cells[i]`.
+    pub fn place_of(&self, i: usize) -> ([usize; 7], usize) {
+        (self.keys[i], self.ctrl[i])
+    }
+
     /// Cells of controller `ctrl` whose axis values match every `(axis, value)` in `fixed`.
     fn select<'s>(
         &'s self,
