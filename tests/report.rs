@@ -948,4 +948,10 @@ fn report_outcome_map_and_plan_limit() {
     assert!(row.contains("0.250") && row.contains("| 0.2 |"), "{row}");
     let row = md_row(&md, "## The plan's own limit", "20°");
     assert!(row.contains("∞") && row.contains("0.2, 0.6"), "{row}");
+    // No table ranks a condition beyond the plan's limit: stiff PD's two `ok` runs at 10°,
+    // μ 0.2 are counted as beyond, never bold (a winner) and never averaged.
+    let r = md_row(&md, "### Slope 10°", "0.2");
+    assert!(r.contains("beyond the plan's limit"), "{r}");
+    assert!(!r.contains("**"), "nothing ranked beyond the limit: {r}");
+    assert!(!r.contains("1.00") && !r.contains("7.00"), "no mean of its slips: {r}");
 }
