@@ -953,5 +953,8 @@ fn report_outcome_map_and_plan_limit() {
     let r = md_row(&md, "### Slope 10°", "0.2");
     assert!(r.contains("beyond the plan's limit"), "{r}");
     assert!(!r.contains("**"), "nothing ranked beyond the limit: {r}");
-    assert!(!r.contains("1.00") && !r.contains("7.00"), "no mean of its slips: {r}");
+    assert!(
+        !r.contains("1.00") && !r.contains("7.00"),
+        "no mean of its slips: {r}"
+    );
 }
