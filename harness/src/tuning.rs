@@ -5,7 +5,10 @@
 //! every damping × √s (the damping ratio of a joint or task axis, ζ = kd / (2 √(kp I)), is kept;
 //! mass–spring–damper algebra). At s = 1 the gains are the law's settings before tuning
 //! ([`Scenario::law_base`]). The procedure, on a short tuning motion of the scenario's robot on
-//! flat ground at μ = 1 with the exact model and no noise (the weight shift, [`TUNE_DURATION`]):
+//! flat ground at μ = 1 with the exact model and no noise — the first step of a paced crawl:
+//! a base shift on every foot, then one foot's swing and touchdown, then [`TUNE_SETTLE`]
+//! (a swing leg carries only its own inertia, so it is where a stiff explicit PD first goes
+//! unstable; a motion with every foot on the ground, such as a weight shift, misses it):
 //!
 //! 1. **Critical scale s_c** by bisection in log-space between [`law_bounds`]: first the upper
 //!    bound (stable there: s_c ≥ upper), then the lower bound (unstable there: s_c < lower),
@@ -22,8 +25,8 @@
 //!    the table says so), one at the lower bound, then [`TARGET_STEPS`] log-bisection steps.
 //!
 //! Cost: at most 2 + [`CRITICAL_STEPS`] + 1 trials for stiff PD and
-//! 2 + [`CRITICAL_STEPS`] + 2 + [`TARGET_STEPS`] for the others, each [`TUNE_DURATION`]
-//! simulated seconds. Every trial is the real cell simulation ([`run_cell_with_plan`]), so the
+//! 2 + [`CRITICAL_STEPS`] + 2 + [`TARGET_STEPS`] for the others, each one tuning step
+//! (about 2 simulated seconds for the demo robot). Every trial is the real cell simulation ([`run_cell_with_plan`]), so the
 //! result is deterministic; combinations run in parallel and are collected in matrix order.
 
 use crate::cell::{CellContext, TraceRow, run_cell_with_plan};
@@ -40,12 +43,16 @@ use std::path::Path;
 
 /// The tuning table's file name in a run folder.
 pub const GAINS_FILE: &str = "gains.csv";
-/// Simulated seconds of the tuning motion: one round of the weight shift.
-pub const TUNE_DURATION: f64 = 2.0;
-/// Period of the tuning weight shift, s (one round).
-pub const TUNE_PERIOD: f64 = 2.0;
-/// Weight-shift amplitude of the tuning motion as a share of the body height.
-pub const TUNE_AMPLITUDE_SHARE: f64 = 0.1;
+/// Settling time after the tuning step's swing foot touches down, s.
+pub const TUNE_SETTLE: f64 = 0.5;
+/// Span of the tuning crawl's plan, s (long enough for one cycle of any robot's paced crawl;
+/// only its first step is simulated).
+pub const TUNE_PLAN_SPAN: f64 = 30.0;
+/// Gait geometry of the tuning step as shares of the body height h: step h/5, swing height
+/// h/6 (the robot-derived defaults of `[gait]`), and the even slot grid of the default crawl.
+pub const TUNE_STEP_SHARE: f64 = 0.2;
+pub const TUNE_SWING_SHARE: f64 = 1.0 / 6.0;
+pub const TUNE_CYCLE_PERIOD: f64 = 3.2;
 /// Bisection steps for the critical scale.
 pub const CRITICAL_STEPS: u32 = 6;
 /// Bisection steps for the model-based laws' tracking target.
@@ -183,8 +190,13 @@ pub fn tuning_inputs(s: &Scenario, robot: &LoadedRobot) -> Vec<(&'static str, St
         (
             "tuning motion (gait.body_height, falls)",
             sha256_hex(&[&format!(
-                "{} {} {} {:?} v1",
-                s.body_height, TUNE_DURATION, TUNE_AMPLITUDE_SHARE, s.falls
+                "{} {} {} {} {} {:?} crawl-step v2",
+                s.body_height,
+                TUNE_SETTLE,
+                TUNE_STEP_SHARE,
+                TUNE_SWING_SHARE,
+                TUNE_CYCLE_PERIOD,
+                s.falls
             )]),
         ),
     ]
@@ -211,19 +223,46 @@ fn sha256_hex(parts: &[&str]) -> String {
     h.finalize().iter().map(|b| format!("{b:02x}")).collect()
 }
 
-/// The scenario of the tuning motion: weight shift on the scenario's body height, exact model,
-/// no noise, the scenario's plant and fall test.
-fn tuning_scenario(s: &Scenario) -> Scenario {
+/// The gait of the tuning motion: a paced crawl on the scenario's body height h with step h/5
+/// and swing height h/6, the margin derived from the robot (only its first step is simulated).
+fn tuning_gait(s: &Scenario) -> Gait {
+    let h = s.body_height;
+    Gait::Crawl {
+        step_length: TUNE_STEP_SHARE * h,
+        swing_height: TUNE_SWING_SHARE * h,
+        cycle_period: TUNE_CYCLE_PERIOD,
+        body_height: h,
+        margin: None,
+        shift_accel: Some(crate::planner::DEFAULT_SHIFT_ACCEL),
+    }
+}
+
+/// The scenario of the tuning motion: the tuning crawl, exact model, no noise, the scenario's
+/// plant and fall test; `duration` is the tuning step's end ([`tuning_step_end`]).
+fn tuning_scenario(s: &Scenario, duration: f64) -> Scenario {
     let mut t = s.clone();
-    t.gait = Gait::WeightShift {
-        amplitude: TUNE_AMPLITUDE_SHARE * s.body_height,
-        period: TUNE_PERIOD,
-        body_height: s.body_height,
-    };
-    t.duration = TUNE_DURATION;
+    t.gait = tuning_gait(s);
+    t.duration = duration;
     t.tuned.clear();
     t.noise.delay = 0.0;
     t
+}
+
+/// When the tuning crawl's first swing foot is back on the ground, plus [`TUNE_SETTLE`], s.
+fn tuning_step_end(plan: &Plan, dt: f64) -> Option<f64> {
+    let mut sample = plan.new_sample();
+    let mut swung = false;
+    let steps = (plan.duration() / dt).floor() as usize;
+    for k in 0..steps {
+        let t = k as f64 * dt;
+        plan.sample(t, &mut sample);
+        if sample.stance.iter().any(|&b| !b) {
+            swung = true;
+        } else if swung {
+            return Some(t + TUNE_SETTLE);
+        }
+    }
+    None
 }
 
 struct Tuner<'a> {
@@ -294,7 +333,7 @@ impl Tuner<'_> {
     /// counts as infinite growth.
     fn rate_error_thirds(&self, rows: &[TraceRow]) -> (f64, f64) {
         let dt = self.scenario.plant.dt;
-        let planned = (TUNE_DURATION / dt).round() as usize;
+        let planned = (self.scenario.duration / dt).round() as usize;
         if rows.len() < planned {
             return (0.0, f64::INFINITY);
         }
@@ -518,16 +557,22 @@ pub fn tune(
     robot: &LoadedRobot,
     threads: Option<usize>,
 ) -> Result<GainTable, String> {
-    let scenario = tuning_scenario(s);
     let slope = crate::plant::terrain::Slope::degrees(0.0);
     let plan = Plan::build(
         &robot.model,
         &robot.facts,
         &slope,
-        &scenario.gait,
-        TUNE_DURATION,
+        &tuning_gait(s),
+        TUNE_PLAN_SPAN,
     )
-    .map_err(|e| format!("{}: the tuning motion (weight shift): {e}", s.source))?;
+    .map_err(|e| format!("{}: the tuning motion (one crawl step): {e}", s.source))?;
+    let duration = tuning_step_end(&plan, s.plant.dt).ok_or_else(|| {
+        format!(
+            "{}: the tuning motion (one crawl step): no foot swings within {TUNE_PLAN_SPAN} s",
+            s.source
+        )
+    })?;
+    let scenario = tuning_scenario(s, duration);
     let tuner = Tuner {
         scenario,
         robot,
