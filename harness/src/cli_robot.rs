@@ -456,7 +456,7 @@ pub fn summary_text(robot: &LoadedRobot, with_armature: bool) -> String {
             let st = crate::robot::nominal_stance(model, f);
             let _ = writeln!(
                 s,
-                "  stance height     {:.4} m: base frame above the ground in the nominal posture (the default gait.body_height; step h/5, swing height h/6, crawl margin h/15, weight-shift amplitude h/10)",
+                "  stance height     {:.4} m: base frame above the ground in the nominal posture (the default gait.body_height; step h/5, swing height h/6, weight-shift amplitude h/10; the crawl margin comes from the support triangles)",
                 st.height
             );
             for (name, p) in f.feet.frames.iter().zip(&st.feet) {

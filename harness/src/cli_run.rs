@@ -181,9 +181,7 @@ pub fn cmd_run(a: &RunArgs) -> Result<String, RunError> {
 /// `tune`: the tuning alone; the table as CSV on stdout.
 pub fn cmd_tune(a: &TuneArgs) -> Result<String, RunError> {
     let s = load(&a.scenario)?;
-    if a.threads == Some(0) {
-        return Err(RunError::input("--threads 0: allowed: 1 or more"));
-    }
+    crate::limits::check_threads(a.threads).map_err(RunError::input)?;
     if let Some(p) = &a.out
         && p.exists()
     {

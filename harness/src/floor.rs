@@ -33,8 +33,8 @@ use gripsweep_controllers::spatial::Vec3;
 /// and ranks nothing on slip.
 pub const FLOOR_BOUND_MM: f64 = 1.0;
 
-/// Natural frequency of the engine's joint locks in [`locked_slip`], Hz (critically damped):
-/// the stiffest lock that kept the locked demo robots from creeping (see above).
+/// Natural frequency of the engine's joint locks in [`locked_slip`], Hz (critically damped).
+/// Every lock tried let the locked demo robots creep (see above); this one crept least.
 pub const LOCK_HZ: f64 = 50.0;
 
 /// The slip floor of a scenario's robot and plant settings, mm per stance phase (NaN when the

@@ -415,8 +415,9 @@ pub fn manifest_inputs(s: &Scenario, robot: &LoadedRobot) -> Value {
 }
 
 /// The files a run reads (for `--force`: never replace a folder holding one).
-fn input_paths(s: &Scenario, robot: &LoadedRobot) -> Vec<PathBuf> {
+fn input_paths(s: &Scenario, robot: &LoadedRobot, gains_from: Option<&PathBuf>) -> Vec<PathBuf> {
     let mut v = vec![PathBuf::from(&s.source)];
+    v.extend(gains_from.cloned());
     if s.robot_path.is_some() {
         v.push(PathBuf::from(&robot.source));
         v.push(PathBuf::from(&robot.urdf_source));
@@ -447,7 +448,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         FolderState::Missing | FolderState::Empty => false,
         FolderState::RunFolder(_) if opts.resume => true,
         FolderState::RunFolder(_) if opts.force => {
-            check_replaceable(out, &input_paths(s, &robot))?;
+            check_replaceable(out, &input_paths(s, &robot, opts.gains_from.as_ref()))?;
             false
         }
         FolderState::Foreign(why) if opts.resume || opts.force => {
@@ -559,6 +560,18 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         }
     };
     let gains_csv = table.to_csv();
+    // The folder's kept cells ran with the gains its manifest names: a resume with another
+    // table would mix results.
+    if resuming
+        && let Some(old) = man["gains_sha256"].as_str()
+        && old != sha256_hex(&gains_csv)
+    {
+        return Err(RunError::input(format!(
+            "{}: --resume: the tuning table differs from the one the folder's cells ran with (SHA-256 of {} against the manifest's `gains_sha256`); resume without --gains-from, or start a new folder",
+            out.display(),
+            crate::tuning::GAINS_FILE
+        )));
+    }
     let mut tuned = s.clone();
     table.apply(&mut tuned);
     let s = &tuned;
@@ -581,7 +594,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     man["slip_floor_implausible"] = json!(implausible);
     if implausible {
         eprintln!(
-            "gripsweep: warning: the slip floor is {floor:.3} mm per stance phase, above the plausible {} mm (locked joints should not creep); no table ranks the laws on slip",
+            "gripsweep: warning: the slip floor is {floor:.3} mm per stance phase, above the plausible {} mm (a robot standing still on flat ground at μ = 1 should not creep); no table ranks the laws on slip",
             crate::floor::FLOOR_BOUND_MM
         );
     }

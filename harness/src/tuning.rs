@@ -41,6 +41,9 @@ use rayon::prelude::*;
 use sha2::{Digest, Sha256};
 use std::path::Path;
 
+/// Largest tuning table read back, bytes (a row is about 400 bytes; 4 MiB is ten thousand
+/// combinations).
+pub const MAX_TABLE_BYTES: u64 = 4 << 20;
 /// The tuning table's file name in a run folder.
 pub const GAINS_FILE: &str = "gains.csv";
 /// Settling time after the tuning step's swing foot touches down, s.
@@ -619,8 +622,7 @@ pub fn tune(
 /// (the robot files, plant settings, tuning motion and law settings, each hashed) and it must
 /// hold every combination the scenario needs; otherwise an error names what differs.
 pub fn read_table(path: &Path, s: &Scenario, robot: &LoadedRobot) -> Result<GainTable, String> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| format!("{}: cannot read the tuning table: {e}", path.display()))?;
+    let text = crate::limits::read_text_bounded(path, MAX_TABLE_BYTES, "the tuning table")?;
     let mut reader = csv::ReaderBuilder::new().from_reader(text.as_bytes());
     let head: Vec<String> = reader
         .headers()

@@ -169,7 +169,7 @@ fn gains_section(dir: &Path, floor: f64) -> String {
     if floor > crate::floor::FLOOR_BOUND_MM {
         let _ = writeln!(
             out,
-            "\n## Warning: implausible slip floor\n\nThe robot with its joints locked by the engine crept {floor:.3} mm per stance phase, above the plausible {} mm: the plant's contact model cannot resolve slip differences here, so no table above ranks the laws on slip (every law ties).\n",
+            "\n## Warning: implausible slip floor\n\nThe robot standing still on flat ground (μ = 1, stiff PD with its tuned gains at the plant rate) crept {floor:.3} mm per stance phase, above the plausible {} mm: the plant's contact model cannot resolve slip differences here, so no table above ranks the laws on slip (every law ties).\n",
             crate::floor::FLOOR_BOUND_MM
         );
     }
