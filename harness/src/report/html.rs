@@ -98,19 +98,37 @@ fn verdict_html(study: &Study, v: &Verdict) -> String {
     }
 }
 
-/// The (slope, μ) of a condition, for the verdict sentences.
+/// A condition's axis values for the verdict sentences: slope and μ, and every other axis the
+/// run varies (rate, actuator, model error, noise) — a condition fixes every axis, so a
+/// sentence without them would name several conditions at once.
 fn place(study: &Study, idx: &[usize; 7]) -> String {
-    format!(
-        "{} μ {}",
+    let mut parts = vec![
         study
             .axes
             .value_text(Axis::Slope, idx[Axis::Slope as usize]),
-        study.axes.value_raw(Axis::Mu, idx[Axis::Mu as usize])
-    )
+        format!(
+            "μ {}",
+            study.axes.value_raw(Axis::Mu, idx[Axis::Mu as usize])
+        ),
+    ];
+    for axis in [
+        Axis::Rate,
+        Axis::Actuator,
+        Axis::MassScale,
+        Axis::ComShift,
+        Axis::Noise,
+    ] {
+        if study.axes.len(axis) > 1 {
+            parts.push(study.axes.value_text(axis, idx[axis as usize]));
+        }
+    }
+    parts.join(", ")
 }
 
 fn list_places(mut v: Vec<String>, limit: usize) -> String {
-    v.dedup();
+    // Each place once, in first-seen order.
+    let mut seen = std::collections::HashSet::new();
+    v.retain(|p| seen.insert(p.clone()));
     let n = v.len();
     if n > limit {
         v.truncate(limit);
