@@ -920,3 +920,52 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
     }
     let _ = std::fs::remove_dir_all(&d);
 }
+
+/// A resume given a tuning table other than the one the folder's cells ran with is refused
+/// (its rows would mix two gain sets), naming the table, and nothing changes.
+#[test]
+fn resume_refuses_another_tuning_table() {
+    let d = temp("gains");
+    let robot = robot_copy(&d);
+    let sc = tiny(&d, &robot, "");
+    let r = d.join("r");
+    ok(&run(&["run", s(&sc), "--out", s(&r), "--quiet"]));
+    // The folder's own table with stiff PD's gains changed: valid for these inputs (its input
+    // hashes are untouched), but not the gains the cells ran with.
+    let own = std::fs::read_to_string(r.join("gains.csv")).unwrap();
+    let mut lines: Vec<String> = own.lines().map(String::from).collect();
+    let head: Vec<&str> = lines[0].split(',').collect();
+    let last = head.iter().position(|c| *c == "stiff_kd").unwrap();
+    let mut f: Vec<String> = lines[1].splitn(last + 2, ',').map(String::from).collect();
+    for (c, v) in [
+        ("s_chosen", "0.0625"),
+        ("stiff_kp", "1250"),
+        ("stiff_kd", "7.5"),
+    ] {
+        f[head.iter().position(|h| *h == c).unwrap()] = v.into();
+    }
+    lines[1] = f.join(",");
+    let edited = d.join("edited-gains.csv");
+    std::fs::write(&edited, lines.join("\n") + "\n").unwrap();
+    let before = snapshot(&d);
+    let o = run(&[
+        "run",
+        s(&sc),
+        "--out",
+        s(&r),
+        "--resume",
+        "--gains-from",
+        s(&edited),
+        "--quiet",
+    ]);
+    refused(&o, &["--resume", "gains.csv", "gains_sha256"], &d, &before);
+    // The folder's own table resumes (nothing left to run).
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--out",
+        s(&r),
+        "--resume",
+        "--quiet",
+    ]));
+}
