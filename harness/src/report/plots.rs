@@ -304,6 +304,18 @@ fn header_height(subtitle: &str, labels: &[String], width: u32) -> u32 {
     legend_top(subtitle, width) + legend_rows(labels, width) * LEGEND_ROW + 8
 }
 
+/// Pixel size of a figure laid out as a grid of panels under the header (subtitle and legend).
+fn panel_grid_size(
+    (rows, cols): (usize, usize),
+    subtitle: &str,
+    legend: &[(LegendKey, String)],
+) -> (u32, u32) {
+    let width = (2 * MARGIN + cols as u32 * PANEL_W).max(MIN_WIDTH);
+    let labels: Vec<String> = legend.iter().map(|(_, l)| l.clone()).collect();
+    let height = header_height(subtitle, &labels, width) + rows as u32 * PANEL_H + MARGIN / 2;
+    (width, height)
+}
+
 fn font(size: f64) -> TextStyle<'static> {
     FontDesc::new(FontFamily::Name(FAMILY), size, FontStyle::Normal).color(&INK)
 }
@@ -695,12 +707,7 @@ impl LineFigure {
 
     /// Pixel size of the figure (the same for the SVG and the PNG).
     pub fn size(&self) -> (u32, u32) {
-        let (rows, cols) = self.grid();
-        let width = (2 * MARGIN + cols as u32 * PANEL_W).max(MIN_WIDTH);
-        let labels: Vec<String> = self.legend().into_iter().map(|(_, l)| l).collect();
-        let height =
-            header_height(&self.subtitle, &labels, width) + rows as u32 * PANEL_H + MARGIN / 2;
-        (width, height)
+        panel_grid_size(self.grid(), &self.subtitle, &self.legend())
     }
 
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
@@ -961,12 +968,7 @@ impl MapFigure {
 
     /// Pixel size of the figure (the same for the SVG and the PNG).
     pub fn size(&self) -> (u32, u32) {
-        let (rows, cols) = self.grid();
-        let width = (2 * MARGIN + cols as u32 * PANEL_W).max(MIN_WIDTH);
-        let labels: Vec<String> = self.legend().into_iter().map(|(_, l)| l).collect();
-        let height =
-            header_height(&self.subtitle, &labels, width) + rows as u32 * PANEL_H + MARGIN / 2;
-        (width, height)
+        panel_grid_size(self.grid(), &self.subtitle, &self.legend())
     }
 
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
