@@ -23,6 +23,16 @@ pub struct RobotFacts {
     /// Let links of the robot collide with each other in the plant (default off).
     #[serde(default)]
     pub self_collision: bool,
+    /// Folders searched for `package://NAME/…` collision meshes, relative to the facts file
+    /// (the harness resolves them; see its `meshes` module). Default: none.
+    #[serde(default)]
+    pub package_dirs: Vec<String>,
+    /// Joint friction from the URDF's `<dynamics friction damping>` by joint name: (Coulomb
+    /// N·m, viscous N·m·s/rad). Never read from the TOML; filled by [`RobotFacts::set_urdf_dynamics`].
+    /// Precedence in [`RobotFacts::actuator`]: a joint's own `[actuators.joints.<joint>]` value,
+    /// then the `[actuators]` default, then the URDF, then 0.
+    #[serde(skip)]
+    pub urdf_friction: BTreeMap<String, (f64, f64)>,
 }
 
 #[derive(Clone, Debug, Deserialize)]
@@ -154,10 +164,16 @@ impl RobotFacts {
     pub fn actuator(&self, joint: &str) -> ActuatorParams {
         let d = &self.actuators.defaults;
         let base = ActuatorParams::default();
+        // Anything the facts say wins over the URDF's <dynamics>, which wins over 0.
+        let (urdf_coulomb, urdf_viscous) = self
+            .urdf_friction
+            .get(joint)
+            .copied()
+            .unwrap_or((base.coulomb, base.viscous));
         let mut p = ActuatorParams {
             armature: d.armature.unwrap_or(base.armature),
-            coulomb: d.coulomb.unwrap_or(base.coulomb),
-            viscous: d.viscous.unwrap_or(base.viscous),
+            coulomb: d.coulomb.unwrap_or(urdf_coulomb),
+            viscous: d.viscous.unwrap_or(urdf_viscous),
             torque_constant_error: d
                 .torque_constant_error
                 .unwrap_or(base.torque_constant_error),
@@ -271,6 +287,54 @@ impl RobotFacts {
                             _ => "≥ 0",
                         }
                     ));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Read the moving joints' `<dynamics friction damping>` from the URDF into
+    /// [`RobotFacts::urdf_friction`] (`friction` is Coulomb friction, N·m or N; `damping` viscous,
+    /// N·m·s/rad or N·s/m, as the URDF specification defines them). Errors name the joint.
+    pub fn set_urdf_dynamics(&mut self, urdf: &urdf_rs::Robot, model: &Model) -> Result<(), String> {
+        self.urdf_friction.clear();
+        for j in &urdf.joints {
+            let Some(d) = &j.dynamics else { continue };
+            if model.joint_index(&j.name).is_none() {
+                continue; // a fixed joint has no friction to feed
+            }
+            for (attr, val) in [("friction", d.friction), ("damping", d.damping)] {
+                if !(val.is_finite() && val >= 0.0) {
+                    return Err(format!(
+                        "joint '{}': <dynamics {attr}=\"{val}\">: allowed: a finite value ≥ 0",
+                        j.name
+                    ));
+                }
+            }
+            self.urdf_friction
+                .insert(j.name.clone(), (d.friction, d.damping));
+        }
+        Ok(())
+    }
+
+    /// Check every foot whose URDF link
+    /// carries a sphere collision: its radius must equal `feet.radius` (the plant's feet and
+    /// the controllers' contact points use `feet.radius`, so a different sphere in the URDF
+    /// means the file says two things). `urdf_name` labels the message.
+    pub fn check_foot_spheres(&self, urdf: &urdf_rs::Robot, urdf_name: &str) -> Result<(), String> {
+        for foot in &self.feet.frames {
+            let Some(link) = urdf.links.iter().find(|l| &l.name == foot) else {
+                continue;
+            };
+            for c in &link.collision {
+                if let urdf_rs::Geometry::Sphere { radius } = c.geometry {
+                    let tol = 1e-9 * radius.abs().max(self.feet.radius.abs()).max(1.0);
+                    if (radius - self.feet.radius).abs() > tol {
+                        return Err(format!(
+                            "field `feet.radius` = {} m disagrees with the URDF: foot '{foot}' has a collision sphere of radius {radius} m in {urdf_name}; make the two equal (the plant and the controllers use `feet.radius`)",
+                            self.feet.radius
+                        ));
+                    }
                 }
             }
         }

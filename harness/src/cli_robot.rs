@@ -50,6 +50,12 @@ pub struct RobotArgs {
     /// the reference comparison); the armature is reported either way.
     #[arg(long)]
     pub with_armature: bool,
+
+    /// With a bare .urdf: print the robot facts TOML inferred for it (feet, foot radius, a
+    /// standing posture, actuator defaults; see the README, "A bare URDF") instead of the
+    /// summary, to save beside the URDF and edit. Default: off.
+    #[arg(long, conflicts_with_all = ["json", "state", "with_armature"])]
+    pub draft_facts: bool,
 }
 
 /// A failure of the `robot` command: one message naming the file and what is wrong with it.
@@ -82,6 +88,8 @@ pub struct LoadedRobot {
     pub source: String,
     /// The URDF the model was built from, as shown in messages.
     pub urdf_source: String,
+    /// Collision meshes left out (see `crate::meshes`), said once on stderr and in the summary.
+    pub mesh_warning: Option<String>,
 }
 
 /// Load a robot from a facts TOML, a bare URDF, or (with `None`) the embedded demo quadruped.
@@ -114,13 +122,18 @@ pub fn load_robot(file: Option<&Path>) -> Result<LoadedRobot, CliError> {
         }
         Some("urdf") | Some("xml") => {
             let text = read_text(path, crate::limits::MAX_URDF_BYTES, "the URDF")?;
-            let model = Model::from_urdf_str(&text, RootKind::Floating)
+            let urdf = gripsweep_controllers::model::parse_urdf(&text)
                 .map_err(|e| CliError(format!("{shown}: {e}")))?;
+            let model = Model::from_urdf(&urdf, RootKind::Floating)
+                .map_err(|e| CliError(format!("{shown}: {e}")))?;
+            let search = crate::meshes::MeshSearch::new(path.parent(), None, &[]);
+            let mesh_warning = mesh_warning(&urdf, &search, &[], &shown)?;
             Ok(LoadedRobot {
                 model,
                 facts: None,
                 source: shown.clone(),
                 urdf_source: shown,
+                mesh_warning,
             })
         }
         _ => fail(format!(
@@ -141,17 +154,47 @@ fn from_facts_text(
     crate::limits::check_toml_depth(text).map_err(|e| CliError(format!("{shown}: {e}")))?;
     let facts = RobotFacts::from_toml_str(text).map_err(|e| CliError(format!("{shown}: {e}")))?;
     let (urdf_text, urdf_shown) = read_urdf(&facts.urdf)?;
-    let model = Model::from_urdf_str(&urdf_text, RootKind::Floating)
+    let urdf = gripsweep_controllers::model::parse_urdf(&urdf_text)
+        .map_err(|e| CliError(format!("{urdf_shown}: {e}")))?;
+    let model = Model::from_urdf(&urdf, RootKind::Floating)
         .map_err(|e| CliError(format!("{urdf_shown}: {e}")))?;
     facts
         .validate(&model)
         .map_err(|e| CliError(format!("{shown}: {e}")))?;
+    facts
+        .check_foot_spheres(&urdf, &urdf_shown)
+        .map_err(|e| CliError(format!("{shown}: {e}")))?;
+    let mut facts = facts;
+    facts
+        .set_urdf_dynamics(&urdf, &model)
+        .map_err(|e| CliError(format!("{urdf_shown}: {e}")))?;
+    // Embedded robots carry no meshes; files resolve from the URDF's and the facts' folders.
+    let search = crate::meshes::MeshSearch::new(
+        Path::new(&urdf_shown).parent(),
+        Path::new(shown).parent(),
+        &facts.package_dirs,
+    );
+    let mesh_warning = mesh_warning(&urdf, &search, &facts.feet.frames, &urdf_shown)?;
     Ok(LoadedRobot {
         model,
         facts: Some(facts),
         source: shown.to_string(),
         urdf_source: urdf_shown,
+        mesh_warning,
     })
+}
+
+/// Load the URDF's collision meshes (an unreadable file is an error) and return the one
+/// warning about those left out.
+fn mesh_warning(
+    urdf: &urdf_rs::Robot,
+    search: &crate::meshes::MeshSearch,
+    feet: &[String],
+    urdf_shown: &str,
+) -> Result<Option<String>, CliError> {
+    let (_, missing) = crate::meshes::load(urdf, search, feet)
+        .map_err(|e| CliError(format!("{urdf_shown}: {e}")))?;
+    Ok(crate::meshes::missing_warning(urdf_shown, &missing))
 }
 
 /// One state in the model's conventions.
@@ -521,7 +564,26 @@ pub fn summary_text(robot: &LoadedRobot, with_armature: bool) -> String {
 
 /// The whole `robot` command: returns what goes to stdout.
 pub fn run(args: &RobotArgs) -> Result<String, CliError> {
+    if args.draft_facts {
+        let Some(path) = args.file.as_deref().filter(|p| crate::infer::is_urdf_path(p)) else {
+            return fail("--draft-facts needs a bare URDF (FILE ending in .urdf or .xml)");
+        };
+        let text = read_text(path, crate::limits::MAX_URDF_BYTES, "the URDF")?;
+        let name = path
+            .file_name()
+            .map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned());
+        let (toml, problem) =
+            crate::infer::draft_facts(&text, &path.display().to_string(), &name, None)
+                .map_err(CliError)?;
+        if let Some(p) = problem {
+            eprintln!("gripsweep: warning: {}: {p}", path.display());
+        }
+        return Ok(toml);
+    }
     let mut robot = load_robot(args.file.as_deref())?;
+    if let Some(w) = &robot.mesh_warning {
+        eprintln!("gripsweep: warning: {w}");
+    }
     if args.with_armature {
         match &robot.facts {
             Some(facts) => facts.apply_armature(&mut robot.model),

@@ -2,6 +2,7 @@
 //! applied. The demo quadruped is compiled into the binary so the tool runs with no files.
 
 use crate::limits::{MAX_FACTS_BYTES, MAX_URDF_BYTES, check_toml_depth, read_text_bounded};
+use crate::meshes::{CollisionMesh, MeshSearch, MissingMesh};
 use gripsweep_controllers::{Model, RobotFacts, RootKind};
 use std::path::{Path, PathBuf};
 
@@ -22,6 +23,13 @@ pub struct LoadedRobot {
     pub urdf: urdf_rs::Robot,
     pub model: Model,
     pub facts: RobotFacts,
+    /// Collision meshes of non-foot links, loaded as convex hulls (see [`crate::meshes`]).
+    pub meshes: Vec<CollisionMesh>,
+    /// Collision meshes the plant goes without (file not found, format not read).
+    pub missing_meshes: Vec<MissingMesh>,
+    /// True when the facts were inferred from a bare URDF ([`crate::infer`]); `facts_text` is
+    /// then the inferred TOML.
+    pub inferred_facts: bool,
 }
 
 impl LoadedRobot {
@@ -41,15 +49,33 @@ impl LoadedRobot {
         check_toml_depth(&facts_text).map_err(|e| format!("{}: {e}", path.display()))?;
         let facts = RobotFacts::from_toml_str(&facts_text)
             .map_err(|e| format!("{}: {e}", path.display()))?;
-        let urdf_path: PathBuf = path.parent().unwrap_or(Path::new(".")).join(&facts.urdf);
+        let facts_dir = path.parent().unwrap_or(Path::new("."));
+        let urdf_path: PathBuf = facts_dir.join(&facts.urdf);
         let urdf_text = read_text_bounded(&urdf_path, MAX_URDF_BYTES, "the URDF")
             .map_err(|e| format!("{}: field `urdf` = \"{}\": {e}", path.display(), facts.urdf))?;
-        Self::from_texts(
+        let search = MeshSearch::new(urdf_path.parent(), Some(facts_dir), &facts.package_dirs);
+        Self::from_texts_searching(
             &path.display().to_string(),
             &facts_text,
             &urdf_path.display().to_string(),
             &urdf_text,
+            &search,
         )
+    }
+
+    /// From a robot file: a facts TOML, or a bare URDF (`.urdf`, `.xml`) whose facts are
+    /// inferred ([`crate::infer`]; `feet` names the foot links, else they are inferred too).
+    pub fn from_file(path: &Path, feet: Option<&[String]>) -> Result<LoadedRobot, String> {
+        if crate::infer::is_urdf_path(path) {
+            crate::infer::load_bare_urdf(path, feet)
+        } else if feet.is_some() {
+            Err(format!(
+                "{}: feet are named in the robot facts file (`feet.frames`); a scenario's `feet` is only for a bare URDF",
+                path.display()
+            ))
+        } else {
+            Self::from_facts_file(path)
+        }
     }
 
     /// From the two texts; `facts_name` and `urdf_name` label messages.
@@ -59,8 +85,25 @@ impl LoadedRobot {
         urdf_name: &str,
         urdf_text: &str,
     ) -> Result<LoadedRobot, String> {
+        Self::from_texts_searching(
+            facts_name,
+            facts_text,
+            urdf_name,
+            urdf_text,
+            &MeshSearch::default(),
+        )
+    }
+
+    /// [`LoadedRobot::from_texts`], with collision meshes looked for as `search` says.
+    pub fn from_texts_searching(
+        facts_name: &str,
+        facts_text: &str,
+        urdf_name: &str,
+        urdf_text: &str,
+        search: &MeshSearch,
+    ) -> Result<LoadedRobot, String> {
         check_toml_depth(facts_text).map_err(|e| format!("{facts_name}: {e}"))?;
-        let facts =
+        let mut facts =
             RobotFacts::from_toml_str(facts_text).map_err(|e| format!("{facts_name}: {e}"))?;
         let urdf = gripsweep_controllers::model::parse_urdf(urdf_text)
             .map_err(|e| format!("{urdf_name}: {e}"))?;
@@ -69,7 +112,15 @@ impl LoadedRobot {
         facts
             .validate(&model)
             .map_err(|e| format!("{facts_name}: {e}"))?;
+        facts
+            .check_foot_spheres(&urdf, urdf_name)
+            .map_err(|e| format!("{facts_name}: {e}"))?;
+        facts
+            .set_urdf_dynamics(&urdf, &model)
+            .map_err(|e| format!("{urdf_name}: {e}"))?;
         facts.apply_armature(&mut model);
+        let (meshes, missing_meshes) = crate::meshes::load(&urdf, search, &facts.feet.frames)
+            .map_err(|e| format!("{urdf_name}: {e}"))?;
         Ok(LoadedRobot {
             source: facts_name.to_string(),
             urdf_source: urdf_name.to_string(),
@@ -78,7 +129,15 @@ impl LoadedRobot {
             urdf,
             model,
             facts,
+            meshes,
+            missing_meshes,
+            inferred_facts: false,
         })
+    }
+
+    /// The one warning about collision meshes left out, if any (see [`crate::meshes`]).
+    pub fn mesh_warning(&self) -> Option<String> {
+        crate::meshes::missing_warning(&self.urdf_source, &self.missing_meshes)
     }
 
     /// Frame indices of the feet, in the facts' order.

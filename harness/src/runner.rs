@@ -340,6 +340,8 @@ fn manifest(
         "robot_source": robot.source,
         "robot_facts_sha256": sha256_hex(&robot.facts_text),
         "robot_urdf_sha256": sha256_hex(&robot.urdf_text),
+        // Collision meshes the plant went without (crate::meshes), null when none.
+        "collision_warning": robot.mesh_warning(),
         "gait": gait_json(&s.gait),
         "duration_s": s.duration,
         "seeds": s.seeds,
@@ -407,11 +409,32 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
 /// `--resume` and `merge` refuse a folder whose inputs differ. A new input (a tuning table)
 /// is one more entry here.
 pub fn manifest_inputs(s: &Scenario, robot: &LoadedRobot) -> Value {
-    json!({
+    let mut inputs = json!({
         "scenario": input_entry(&s.source, &s.text),
         "robot_facts": input_entry(&robot.source, &robot.facts_text),
         "urdf": input_entry(&robot.urdf_source, &robot.urdf_text),
-    })
+    });
+    // Collision meshes shape a cell too (a fall is seen or not): every file's hash, and the
+    // meshes not found (a file that appears later changes the results). Only for a URDF with
+    // mesh collisions, so other folders' inputs are unchanged.
+    if !robot.meshes.is_empty() || !robot.missing_meshes.is_empty() {
+        let mut listing: Vec<String> = robot
+            .meshes
+            .iter()
+            .map(|m| format!("{} {} {}", m.link, m.file.display(), m.sha256))
+            .collect();
+        listing.extend(
+            robot
+                .missing_meshes
+                .iter()
+                .map(|m| format!("{} {} missing", m.link, m.uri)),
+        );
+        inputs["collision_meshes"] = input_entry(
+            &format!("{} mesh file(s) named by {}", listing.len(), robot.urdf_source),
+            &listing.join("\n"),
+        );
+    }
+    inputs
 }
 
 /// The files a run reads (for `--force`: never replace a folder holding one).
@@ -419,8 +442,11 @@ fn input_paths(s: &Scenario, robot: &LoadedRobot, gains_from: Option<&PathBuf>) 
     let mut v = vec![PathBuf::from(&s.source)];
     v.extend(gains_from.cloned());
     if s.robot_path.is_some() {
-        v.push(PathBuf::from(&robot.source));
+        if !robot.inferred_facts {
+            v.push(PathBuf::from(&robot.source));
+        }
         v.push(PathBuf::from(&robot.urdf_source));
+        v.extend(robot.meshes.iter().map(|m| m.file.clone()));
     }
     v
 }

@@ -34,6 +34,9 @@ pub struct ScenarioFile {
     /// compiled into the binary).
     #[serde(default = "default_robot")]
     pub robot: String,
+    /// With a bare URDF as `robot`: the foot links (default: inferred, see `crate::infer`).
+    #[serde(default)]
+    pub feet: Option<Vec<String>>,
     /// Simulated seconds per cell.
     #[serde(default = "default_duration")]
     pub duration: f64,
@@ -288,6 +291,8 @@ pub struct Scenario {
     pub text: String,
     pub name: String,
     pub robot_path: Option<PathBuf>,
+    /// The scenario's `feet` (only with a bare URDF as the robot).
+    pub robot_feet: Option<Vec<String>>,
     pub duration: f64,
     pub seeds: u32,
     pub gait: Gait,
@@ -371,13 +376,19 @@ impl Scenario {
                 return Err(fail(
                     "robot",
                     format!(
-                        "robot facts file {} does not exist (a path relative to the scenario file, or \"embedded:brindle\")",
+                        "robot file {} does not exist (a robot facts .toml or a bare .urdf, relative to the scenario file, or \"embedded:brindle\")",
                         p.display()
                     ),
                 ));
             }
             Some(p)
         };
+        if file.feet.is_some() && !robot_path.as_deref().is_some_and(crate::infer::is_urdf_path) {
+            return Err(fail(
+                "feet",
+                "names foot links only when `robot` is a bare URDF (.urdf); a robot facts file names its feet in `feet.frames`".into(),
+            ));
+        }
         if !(file.duration.is_finite() && file.duration > 0.0 && file.duration <= 600.0) {
             return Err(fail(
                 "duration",
@@ -457,7 +468,7 @@ impl Scenario {
         let h_nom = if needs_robot {
             let robot = match &robot_path {
                 None => LoadedRobot::demo(),
-                Some(p) => LoadedRobot::from_facts_file(p),
+                Some(p) => LoadedRobot::from_file(p, file.feet.as_deref()),
             }
             .map_err(|e| fail("robot", e))?;
             let h = robot.nominal_stance().height;
@@ -812,6 +823,7 @@ impl Scenario {
             text: text.to_string(),
             name: file.name.clone(),
             robot_path,
+            robot_feet: file.feet.clone(),
             duration: file.duration,
             seeds: file.seeds,
             gait,
@@ -838,11 +850,27 @@ impl Scenario {
         })
     }
 
-    /// Load the scenario's robot.
+    /// Load the scenario's robot. Says once on stderr what a user must know about it: collision
+    /// meshes left out, facts inferred from a bare URDF.
     pub fn load_robot(&self) -> Result<LoadedRobot, String> {
+        let robot = self.load_robot_quietly()?;
+        if let Some(w) = robot.mesh_warning() {
+            eprintln!("gripsweep: warning: {w}");
+        }
+        if robot.inferred_facts {
+            eprintln!(
+                "gripsweep: {}: a bare URDF; its robot facts are inferred (`gripsweep robot {} --draft-facts` prints them to save and edit)",
+                robot.urdf_source, robot.urdf_source
+            );
+        }
+        Ok(robot)
+    }
+
+    /// [`Scenario::load_robot`] without the messages.
+    pub fn load_robot_quietly(&self) -> Result<LoadedRobot, String> {
         match &self.robot_path {
             None => LoadedRobot::demo(),
-            Some(p) => LoadedRobot::from_facts_file(p)
+            Some(p) => LoadedRobot::from_file(p, self.robot_feet.as_deref())
                 .map_err(|e| format!("{}: field `robot`: {e}", self.source)),
         }
     }

@@ -184,11 +184,13 @@ pub struct GainRow {
 /// constants: the robot files, the plant settings, the tuning motion and the laws' settings
 /// before tuning. A table is reusable only where this matches.
 pub fn tuning_inputs(s: &Scenario, robot: &LoadedRobot) -> Vec<(&'static str, String)> {
+    // Collision meshes' hashes join the robot files only when the URDF has mesh collisions,
+    // so tables made for other robots keep their digests.
+    let mesh_hashes: Vec<&str> = robot.meshes.iter().map(|m| m.sha256.as_str()).collect();
+    let mut robot_files: Vec<&str> = vec![&robot.facts_text, &robot.urdf_text];
+    robot_files.extend(mesh_hashes);
     vec![
-        (
-            "robot files",
-            sha256_hex(&[&robot.facts_text, &robot.urdf_text]),
-        ),
+        ("robot files", sha256_hex(&robot_files)),
         ("plant settings", sha256_hex(&[&format!("{:?}", s.plant)])),
         (
             "tuning motion (gait.body_height, falls)",

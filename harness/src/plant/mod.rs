@@ -236,8 +236,8 @@ impl Plant {
         }
         let mb_handle = mb_handle.expect("a robot has at least one joint");
 
-        // Colliders: sphere feet from the facts; other links' URDF collision shapes (meshes are
-        // skipped), which only serve to detect a trunk or leg touching the ground.
+        // Colliders: sphere feet from the facts; other links' URDF collision shapes (meshes as
+        // their convex hulls), which only serve to detect a trunk or leg touching the ground.
         let foot_frames = robot.foot_frames();
         let groups = InteractionGroups::new(
             ROBOT_GROUP,
@@ -281,8 +281,22 @@ impl Plant {
                 continue;
             };
             let frame = &model.frames[fi];
-            for col in &link.collision {
-                let Some(builder) = geometry_collider(&col.geometry) else {
+            for (index, col) in link.collision.iter().enumerate() {
+                // A mesh is its convex hull, loaded with the robot (crate::meshes); a mesh that
+                // was not loaded is listed in `robot.missing_meshes` and has no collider.
+                let builder = match &col.geometry {
+                    urdf_rs::Geometry::Mesh { .. } => robot
+                        .meshes
+                        .iter()
+                        .find(|m| m.link == link.name && m.index == index)
+                        .and_then(|m| {
+                            let points: Vec<Vector> =
+                                m.hull.iter().map(|p| Vector::new(p[0], p[1], p[2])).collect();
+                            ColliderBuilder::convex_hull(&points)
+                        }),
+                    g => geometry_collider(g),
+                };
+                let Some(builder) = builder else {
                     continue;
                 };
                 let origin = MPose::from_xyz_rpy(*col.origin.xyz, *col.origin.rpy);
