@@ -13,12 +13,23 @@ fn root() -> PathBuf {
 
 fn run(scenario: &Path, out: &Path, gains: Option<&Path>) -> Vec<(String, String, f64, f64)> {
     let mut cmd = Command::new(env!("CARGO_BIN_EXE_gripsweep"));
-    cmd.args(["run", scenario.to_str().unwrap(), "--out", out.to_str().unwrap(), "--quiet"]);
+    cmd.args([
+        "run",
+        scenario.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--quiet",
+    ]);
     if let Some(g) = gains {
         cmd.args(["--gains-from", g.to_str().unwrap()]);
     }
     let o = cmd.output().unwrap();
-    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
     let text = std::fs::read_to_string(out.join("cells.csv")).unwrap();
     let mut lines = text.lines();
     let head: Vec<&str> = lines.next().unwrap().split(',').collect();
@@ -56,15 +67,28 @@ fn dray_stands_shifts_its_weight_and_crawls_with_the_model_based_laws() {
     let crawled = run(&crawl, &dir.join("crawl"), None);
     let gains = dir.join("crawl/gains.csv");
     let stood = run(&variant("stand", 4.0), &dir.join("stand"), Some(&gains));
-    let shifted = run(&variant("weight-shift", 6.0), &dir.join("shift"), Some(&gains));
-    for (gait, rows, bound_mm) in [("stand", &stood, 2.0), ("weight-shift", &shifted, 10.0), ("crawl", &crawled, 10.0)] {
+    let shifted = run(
+        &variant("weight-shift", 6.0),
+        &dir.join("shift"),
+        Some(&gains),
+    );
+    for (gait, rows, bound_mm) in [
+        ("stand", &stood, 2.0),
+        ("weight-shift", &shifted, 10.0),
+        ("crawl", &crawled, 10.0),
+    ] {
         assert_eq!(rows.len(), 3, "{gait}: three model-based laws");
         for (law, status, base_mm, slip_mm) in rows.iter() {
-            eprintln!("dray {gait} {law}: {status}, base {base_mm:.2} mm RMS, slip {slip_mm:.4} mm/phase");
+            eprintln!(
+                "dray {gait} {law}: {status}, base {base_mm:.2} mm RMS, slip {slip_mm:.4} mm/phase"
+            );
             assert_eq!(status, "ok", "dray {gait} {law}");
             // Tracking within a few mm of the plan (the crawl's paced shifts lag a little);
             // slip far below a millimetre on μ = 0.8.
-            assert!(*base_mm < bound_mm, "dray {gait} {law}: base {base_mm} mm RMS");
+            assert!(
+                *base_mm < bound_mm,
+                "dray {gait} {law}: base {base_mm} mm RMS"
+            );
             assert!(*slip_mm < 0.5, "dray {gait} {law}: slip {slip_mm} mm");
         }
     }

@@ -47,7 +47,9 @@ fn binary_stl_box(path: &Path) -> ([f64; 3], [f64; 3]) {
         for v in 0..3 {
             let at = 84 + 50 * t + 12 + 12 * v;
             let c = |i: usize| {
-                f64::from(f32::from_le_bytes(b[at + 4 * i..at + 4 * i + 4].try_into().unwrap()))
+                f64::from(f32::from_le_bytes(
+                    b[at + 4 * i..at + 4 * i + 4].try_into().unwrap(),
+                ))
             };
             pts.push([c(0), c(1), c(2)]);
         }
@@ -106,7 +108,11 @@ fn hull_box(robot: &LoadedRobot, link: &str) -> ([f64; 3], [f64; 3]) {
 #[test]
 fn collision_meshes_load_as_hulls_with_the_files_extent() {
     let robot = LoadedRobot::from_facts_file(&root().join("scenarios/robots/dray.toml")).unwrap();
-    assert!(robot.missing_meshes.is_empty(), "{:?}", robot.missing_meshes);
+    assert!(
+        robot.missing_meshes.is_empty(),
+        "{:?}",
+        robot.missing_meshes
+    );
     // Trunk (binary STL, relative path), 4 thighs (OBJ, package://), 4 shanks (ASCII STL).
     assert_eq!(robot.meshes.len(), 9);
     let meshes = root().join("scenarios/robots/meshes");
@@ -180,10 +186,12 @@ fn a_missing_mesh_is_said_once_naming_the_link_and_in_the_manifest() {
     assert_eq!(err.matches("not loaded").count(), 1, "said once: {err}");
     assert!(err.contains("links left without that collision") && err.contains("trunk"));
     let manifest: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("manifest.json")).unwrap())
-            .unwrap();
+        serde_json::from_str(&std::fs::read_to_string(out.join("manifest.json")).unwrap()).unwrap();
     let w = manifest["collision_warning"].as_str().unwrap();
-    assert!(w.contains("trunk") && w.contains("package://nowhere/shell.stl"), "{w}");
+    assert!(
+        w.contains("trunk") && w.contains("package://nowhere/shell.stl"),
+        "{w}"
+    );
     assert!(manifest["inputs"]["collision_meshes"]["sha256"].is_string());
     // The robot command says it too.
     let (code, _, err) = gripsweep(&["robot", dir.join("holey.toml").to_str().unwrap()]);
@@ -224,13 +232,24 @@ fn urdf_dynamics_feeds_joint_friction_below_what_the_facts_say() {
         .replace("coulomb = 0.4 ", "# ")
         .replace("viscous = 0.03 ", "# ");
     let r = load(&no_defaults);
-    assert_eq!(c_v(&r, "fl_swing"), (0.9, 0.07), "URDF under no facts value");
+    assert_eq!(
+        c_v(&r, "fl_swing"),
+        (0.9, 0.07),
+        "URDF under no facts value"
+    );
     assert_eq!(c_v(&r, "fl_knee"), (0.6, 0.07), "joint table over URDF");
-    assert_eq!(c_v(&r, "fr_swing"), (0.0, 0.0), "no <dynamics>, no facts: none");
+    assert_eq!(
+        c_v(&r, "fr_swing"),
+        (0.0, 0.0),
+        "no <dynamics>, no facts: none"
+    );
     // A negative value in the URDF is refused, naming the joint.
     let bad = urdf.replacen("damping=\"0.07\"", "damping=\"-1\"", 1);
     let e = LoadedRobot::from_texts("f.toml", &facts_text, "r.urdf", &bad).unwrap_err();
-    assert!(e.contains("r.urdf") && e.contains("fl_swing") && e.contains("damping"), "{e}");
+    assert!(
+        e.contains("r.urdf") && e.contains("fl_swing") && e.contains("damping"),
+        "{e}"
+    );
     // The demo robots carry no <dynamics>: their results do not move.
     for name in ["brindle", "tamber", "skitter"] {
         let text =
@@ -257,7 +276,14 @@ fn a_foot_radius_unlike_the_urdf_sphere_is_refused_with_both_values() {
     assert_eq!(code, Some(2), "{err}");
     assert!(out.is_empty());
     assert_eq!(err.lines().count(), 1, "{err}");
-    for needle in ["wide-feet.toml", "feet.radius", "0.025", "0.02 m", "fl_toe", "brindle.urdf"] {
+    for needle in [
+        "wide-feet.toml",
+        "feet.radius",
+        "0.025",
+        "0.02 m",
+        "fl_toe",
+        "brindle.urdf",
+    ] {
         assert!(err.contains(needle), "{needle} in {err}");
     }
     // The library refuses it too (every command loads through it).
@@ -313,7 +339,11 @@ fn a_mesh_trunk_on_the_ground_ends_the_cell_as_fell() {
         None,
     );
     assert_eq!(out.status, CellStatus::Fell, "{}", out.message);
-    assert!(out.message.contains("other than a foot touched the ground"), "{}", out.message);
+    assert!(
+        out.message.contains("other than a foot touched the ground"),
+        "{}",
+        out.message
+    );
     // Without the mesh the same robot sinks through: nothing else of brindle's collides, so
     // the cell does not end by a touch.
     let bare = urdf.replace("boxy_trunk.stl", "no_such_file.stl");
@@ -328,7 +358,11 @@ fn a_mesh_trunk_on_the_ground_ends_the_cell_as_fell() {
         &cell("stiff-pd"),
         None,
     );
-    assert!(!out.message.contains("other than a foot touched"), "{}", out.message);
+    assert!(
+        !out.message.contains("other than a foot touched"),
+        "{}",
+        out.message
+    );
 }
 
 #[test]
@@ -340,16 +374,24 @@ fn a_bare_urdf_runs_a_study_and_its_draft_facts_load() {
     )
     .unwrap();
     // The draft facts: feet and radius inferred, a posture with the feet below the hips.
-    let (code, draft, err) = gripsweep(&["robot", dir.join("bare.urdf").to_str().unwrap(), "--draft-facts"]);
+    let (code, draft, err) = gripsweep(&[
+        "robot",
+        dir.join("bare.urdf").to_str().unwrap(),
+        "--draft-facts",
+    ]);
     assert_eq!(code, Some(0), "{err}");
     let facts = gripsweep_controllers::RobotFacts::from_toml_str(&draft).unwrap();
-    let tamber = LoadedRobot::from_facts_file(&root().join("scenarios/robots/tamber.toml")).unwrap();
+    let tamber =
+        LoadedRobot::from_facts_file(&root().join("scenarios/robots/tamber.toml")).unwrap();
     assert_eq!(facts.feet.frames, tamber.facts.feet.frames);
     assert_eq!(facts.feet.radius, tamber.facts.feet.radius);
     std::fs::write(dir.join("saved.toml"), &draft).unwrap();
     let saved = LoadedRobot::from_facts_file(&dir.join("saved.toml")).unwrap();
     let st = saved.nominal_stance();
-    eprintln!("inferred stance height {:.4} m, feet {:?}", st.height, st.feet);
+    eprintln!(
+        "inferred stance height {:.4} m, feet {:?}",
+        st.height, st.feet
+    );
     assert!(st.height > 0.1, "{}", st.height);
     // A scenario names the URDF itself; one stand cell with pinned gains runs.
     std::fs::write(
@@ -366,7 +408,10 @@ fn a_bare_urdf_runs_a_study_and_its_draft_facts_load() {
         "--quiet",
     ]);
     assert_eq!(code, Some(0), "{err}");
-    assert!(err.contains("inferred") && err.contains("--draft-facts"), "{err}");
+    assert!(
+        err.contains("inferred") && err.contains("--draft-facts"),
+        "{err}"
+    );
     let cells = std::fs::read_to_string(out.join("cells.csv")).unwrap();
     assert_eq!(cells.lines().count(), 2, "{cells}");
     assert!(cells.lines().nth(1).unwrap().contains(",ok,"), "{cells}");

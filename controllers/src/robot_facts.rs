@@ -296,7 +296,11 @@ impl RobotFacts {
     /// Read the moving joints' `<dynamics friction damping>` from the URDF into
     /// [`RobotFacts::urdf_friction`] (`friction` is Coulomb friction, N·m or N; `damping` viscous,
     /// N·m·s/rad or N·s/m, as the URDF specification defines them). Errors name the joint.
-    pub fn set_urdf_dynamics(&mut self, urdf: &urdf_rs::Robot, model: &Model) -> Result<(), String> {
+    pub fn set_urdf_dynamics(
+        &mut self,
+        urdf: &urdf_rs::Robot,
+        model: &Model,
+    ) -> Result<(), String> {
         self.urdf_friction.clear();
         for j in &urdf.joints {
             let Some(d) = &j.dynamics else { continue };

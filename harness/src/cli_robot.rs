@@ -513,7 +513,7 @@ pub fn summary_text(robot: &LoadedRobot, with_armature: bool) -> String {
         None => {
             let _ = writeln!(
                 s,
-                "  feet              none named (a bare URDF; feet come from a robot facts TOML)"
+                "  feet              none named (a bare URDF; feet come from a robot facts TOML, and --draft-facts prints the facts inferred for it)"
             );
         }
     }
@@ -565,13 +565,18 @@ pub fn summary_text(robot: &LoadedRobot, with_armature: bool) -> String {
 /// The whole `robot` command: returns what goes to stdout.
 pub fn run(args: &RobotArgs) -> Result<String, CliError> {
     if args.draft_facts {
-        let Some(path) = args.file.as_deref().filter(|p| crate::infer::is_urdf_path(p)) else {
+        let Some(path) = args
+            .file
+            .as_deref()
+            .filter(|p| crate::infer::is_urdf_path(p))
+        else {
             return fail("--draft-facts needs a bare URDF (FILE ending in .urdf or .xml)");
         };
         let text = read_text(path, crate::limits::MAX_URDF_BYTES, "the URDF")?;
-        let name = path
-            .file_name()
-            .map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned());
+        let name = path.file_name().map_or_else(
+            || path.display().to_string(),
+            |n| n.to_string_lossy().into_owned(),
+        );
         let (toml, problem) =
             crate::infer::draft_facts(&text, &path.display().to_string(), &name, None)
                 .map_err(CliError)?;

@@ -54,8 +54,7 @@ pub fn load_bare_urdf(path: &Path, feet: Option<&[String]>) -> Result<LoadedRobo
     }
     let search = MeshSearch::new(path.parent(), None, &[]);
     let facts_name = format!("{shown} (robot facts inferred)");
-    let mut robot =
-        LoadedRobot::from_texts_searching(&facts_name, &toml, &shown, &text, &search)?;
+    let mut robot = LoadedRobot::from_texts_searching(&facts_name, &toml, &shown, &text, &search)?;
     robot.inferred_facts = true;
     Ok(robot)
 }

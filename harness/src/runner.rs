@@ -430,7 +430,11 @@ pub fn manifest_inputs(s: &Scenario, robot: &LoadedRobot) -> Value {
                 .map(|m| format!("{} {} missing", m.link, m.uri)),
         );
         inputs["collision_meshes"] = input_entry(
-            &format!("{} mesh file(s) named by {}", listing.len(), robot.urdf_source),
+            &format!(
+                "{} mesh file(s) named by {}",
+                listing.len(),
+                robot.urdf_source
+            ),
             &listing.join("\n"),
         );
     }

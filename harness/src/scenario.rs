@@ -383,7 +383,11 @@ impl Scenario {
             }
             Some(p)
         };
-        if file.feet.is_some() && !robot_path.as_deref().is_some_and(crate::infer::is_urdf_path) {
+        if file.feet.is_some()
+            && !robot_path
+                .as_deref()
+                .is_some_and(crate::infer::is_urdf_path)
+        {
             return Err(fail(
                 "feet",
                 "names foot links only when `robot` is a bare URDF (.urdf); a robot facts file names its feet in `feet.frames`".into(),

@@ -290,8 +290,11 @@ impl Plant {
                         .iter()
                         .find(|m| m.link == link.name && m.index == index)
                         .and_then(|m| {
-                            let points: Vec<Vector> =
-                                m.hull.iter().map(|p| Vector::new(p[0], p[1], p[2])).collect();
+                            let points: Vec<Vector> = m
+                                .hull
+                                .iter()
+                                .map(|p| Vector::new(p[0], p[1], p[2]))
+                                .collect();
                             ColliderBuilder::convex_hull(&points)
                         }),
                     g => geometry_collider(g),
