@@ -146,8 +146,7 @@ pub fn draft_facts(
     let _ = writeln!(s);
     let _ = writeln!(
         s,
-        "[feet]   # {}",
-        "leaf links with a sphere collision (or the ones named), their sphere's radius"
+        "[feet]   # leaf links with a sphere collision (or the ones named), their sphere's radius"
     );
     let _ = writeln!(
         s,
@@ -233,7 +232,7 @@ pub fn stance_posture(model: &Model, feet: &[String]) -> Result<Vec<f64>, String
         points.push(frame_pose(model, &ws, fi).trans);
         let length: f64 = points.windows(2).map(|w| (w[1] - w[0]).norm()).sum();
         let hip = points[0];
-        if !(length > 0.0) {
+        if length <= 0.0 || !length.is_finite() {
             return Err(format!(
                 "foot '{f}': its leg has no length (joint '{}' sits at the foot)",
                 model.joints[first].name
