@@ -5,9 +5,11 @@
 //! - **Feet**: the links named (the scenario's `feet`), else every leaf link (no child joint)
 //!   with a sphere collision, in the model's link order. Their spheres must share one radius.
 //! - **Nominal posture**: each foot directly below the origin of the first moving joint of its
-//!   leg (its "hip", fixed in the trunk), at [`STANCE_SHARE`] of the leg's length below it (the
-//!   leg's length: the distances from the hip through each following joint origin to the foot
-//!   centre, which no joint angle changes). Solved by damped least squares on the feet's
+//!   leg (its "hip", fixed in the trunk), on one ground [`STANCE_SHARES`] of the shortest leg's
+//!   length below the hips (a leg's length: the distances from the hip through each following
+//!   joint origin to the foot centre, which no joint angle changes; the first share the feet
+//!   reach wins; a foot a joint limit keeps from the point below its hip may stay up to a tenth
+//!   of the shortest leg's length away from it horizontally, on the same ground). Solved by damped least squares on the feet's
 //!   Jacobians (Nakamura & Hanafusa, "Inverse kinematic solutions with singularity robustness for
 //!   robot manipulator control", J. Dyn. Sys., Meas., Control 1986) within the joint limits,
 //!   from the joints at mid-range, then from a quarter and three quarters of their ranges.
@@ -26,12 +28,15 @@ use nalgebra::{DMatrix, DVector};
 use std::fmt::Write as _;
 use std::path::Path;
 
-/// The feet stand this share of the leg's length below the hip (a bent knee, far from the
-/// stretched-leg singularity; the demo quadrupeds stand at 0.60–0.65).
-pub const STANCE_SHARE: f64 = 0.7;
+/// The ground lies this share of the shortest leg's length below the hips (a bent knee, far
+/// from the stretched-leg singularity; the demo quadrupeds stand at 0.60–0.65), tried in this
+/// order until the feet reach it within the joint limits.
+pub const STANCE_SHARES: [f64; 4] = [0.7, 0.6, 0.8, 0.5];
 
 /// Largest foot placement error the derived posture may keep, m.
-const POSTURE_TOLERANCE: f64 = 1e-6;
+const POSTURE_TOLERANCE: f64 = 1e-10;
+/// Damped least-squares iterations per attempt (it converges linearly near the solution).
+const MAX_POSTURE_ITERATIONS: usize = 2000;
 
 /// Whether a robot file is a URDF (by its extension).
 pub fn is_urdf_path(path: &Path) -> bool {
@@ -167,7 +172,7 @@ pub fn draft_facts(
         None => {
             let _ = writeln!(
                 s,
-                "# Nominal posture, rad: each foot below its leg's first joint at {STANCE_SHARE} of the leg's length.\n[nominal]"
+                "# Nominal posture, rad: each foot below its leg's first joint, on one level ground.\n[nominal]"
             );
         }
         Some(p) => {
@@ -198,9 +203,6 @@ fn toml_key(name: &str) -> String {
 
 /// The joint angles of the inferred nominal posture (see the module documentation).
 pub fn stance_posture(model: &Model, feet: &[String]) -> Result<Vec<f64>, String> {
-    let nj = model.n_joints();
-    let nqb = model.nq_base();
-    let nvb = model.nv_base();
     let frames: Vec<usize> = feet
         .iter()
         .map(|f| model.frame_index(f).ok_or_else(|| format!("no link '{f}'")))
@@ -219,7 +221,8 @@ pub fn stance_posture(model: &Model, feet: &[String]) -> Result<Vec<f64>, String
     let mut ws = Workspace::new(model);
     let q_mid = posture_at(model, 0.5);
     forward_kinematics(model, &mut ws, &q_mid);
-    let mut targets = Vec::with_capacity(frames.len());
+    // Each leg's hip (the first joint's origin, fixed in the trunk) and length.
+    let mut legs = Vec::with_capacity(frames.len());
     for (f, &fi) in feet.iter().zip(&frames) {
         let ks = chain(fi);
         let Some(&first) = ks.first() else {
@@ -231,60 +234,92 @@ pub fn stance_posture(model: &Model, feet: &[String]) -> Result<Vec<f64>, String
         let mut points: Vec<_> = ks.iter().map(|&k| ws.o_m[k + 1].trans).collect();
         points.push(frame_pose(model, &ws, fi).trans);
         let length: f64 = points.windows(2).map(|w| (w[1] - w[0]).norm()).sum();
-        let hip = points[0];
         if length <= 0.0 || !length.is_finite() {
             return Err(format!(
                 "foot '{f}': its leg has no length (joint '{}' sits at the foot)",
                 model.joints[first].name
             ));
         }
-        targets.push(hip - nalgebra::Vector3::new(0.0, 0.0, STANCE_SHARE * length));
+        legs.push((points[0], length));
     }
-    let mut worst = (f64::INFINITY, String::new());
-    for share in [0.5, 0.25, 0.75] {
-        let mut q = posture_at(model, share);
-        let mut jac = DMatrix::zeros(3, model.nv());
-        let mut jj = DMatrix::zeros(3 * frames.len(), nj);
-        let mut err = DVector::zeros(3 * frames.len());
-        let mut max_err = f64::INFINITY;
-        for _ in 0..500 {
-            forward_kinematics(model, &mut ws, &q);
-            max_err = 0.0;
-            for (i, (&fi, t)) in frames.iter().zip(&targets).enumerate() {
-                let p = frame_pose(model, &ws, fi).trans;
-                let e = t - p;
-                max_err = f64::max(max_err, e.norm());
-                err.fixed_rows_mut::<3>(3 * i).copy_from(&e);
-                frame_jacobian(model, &ws, fi, &mut jac, 0, false);
-                jj.rows_mut(3 * i, 3)
-                    .copy_from(&jac.columns(nvb, nj).clone_owned());
+    let mut best = f64::INFINITY;
+    for stance_share in STANCE_SHARES {
+        // One ground for every foot: as low as the shortest reach allows at this share.
+        let ground_z = legs
+            .iter()
+            .map(|(hip, length)| hip.z - stance_share * length)
+            .fold(f64::NEG_INFINITY, f64::max);
+        let targets: Vec<_> = legs
+            .iter()
+            .map(|(hip, _)| nalgebra::Vector3::new(hip.x, hip.y, ground_z))
+            .collect();
+        for start in [0.5, 0.25, 0.75] {
+            // Horizontal slack: a tenth of the shortest leg.
+            let slack = 0.1 * legs.iter().map(|l| l.1).fold(f64::INFINITY, f64::min);
+            match solve_feet(model, &mut ws, &frames, &targets, start, slack) {
+                Ok(q) => return Ok(q),
+                Err(e) => best = best.min(e),
             }
-            if max_err < POSTURE_TOLERANCE {
-                break;
-            }
-            // Δq = Jᵀ (J Jᵀ + λ² I)⁻¹ e, λ = 0.01 (m): damped least squares.
-            let mut a = &jj * jj.transpose();
-            for d in 0..a.nrows() {
-                a[(d, d)] += 1e-4;
-            }
-            let Some(chol) = a.cholesky() else { break };
-            let dq = jj.transpose() * chol.solve(&err);
-            for k in 0..nj {
-                let j = &model.joints[k];
-                q[nqb + k] = (q[nqb + k] + dq[k]).clamp(j.lower, j.upper);
-            }
+        }
+    }
+    Err(format!(
+        "cannot derive a standing posture: with every foot below its leg's first joint at {STANCE_SHARES:?} of the shortest leg's length, a foot stays at least {:.1} mm from its place within the joint limits; write the nominal angles in a robot facts file (`gripsweep robot FILE --draft-facts` prints one to start from, joints at mid-range)",
+        best * 1000.0
+    ))
+}
+
+/// Damped least squares for the joint angles that put each foot frame at its target (base
+/// fixed, level, at the origin), from every joint at `start` of its range, clamped to the
+/// limits. Returns the joint angles, or the largest foot error left.
+fn solve_feet(
+    model: &Model,
+    ws: &mut Workspace,
+    frames: &[usize],
+    targets: &[nalgebra::Vector3<f64>],
+    start: f64,
+    slack: f64,
+) -> Result<Vec<f64>, f64> {
+    let (nj, nqb, nvb) = (model.n_joints(), model.nq_base(), model.nv_base());
+    let mut q = posture_at(model, start);
+    let mut jac = DMatrix::zeros(3, model.nv());
+    let mut jj = DMatrix::zeros(3 * frames.len(), nj);
+    let mut err = DVector::zeros(3 * frames.len());
+    let mut max_err = f64::INFINITY;
+    let (mut max_z, mut max_xy) = (f64::INFINITY, f64::INFINITY);
+    for _ in 0..MAX_POSTURE_ITERATIONS {
+        forward_kinematics(model, ws, &q);
+        max_err = 0.0;
+        (max_z, max_xy) = (0.0, 0.0);
+        for (i, (&fi, t)) in frames.iter().zip(targets).enumerate() {
+            let e = t - frame_pose(model, ws, fi).trans;
+            max_err = f64::max(max_err, e.norm());
+            max_z = f64::max(max_z, e.z.abs());
+            max_xy = f64::max(max_xy, e.xy().norm());
+            err.fixed_rows_mut::<3>(3 * i).copy_from(&e);
+            frame_jacobian(model, ws, fi, &mut jac, 0, false);
+            jj.rows_mut(3 * i, 3)
+                .copy_from(&jac.columns(nvb, nj).clone_owned());
         }
         if max_err < POSTURE_TOLERANCE {
             return Ok((0..nj).map(|k| q[nqb + k]).collect());
         }
-        if max_err < worst.0 {
-            worst = (max_err, format!("{share}"));
+        // Δq = Jᵀ (J Jᵀ + λ² I)⁻¹ e with λ = 0.01 m.
+        let mut a = &jj * jj.transpose();
+        for d in 0..a.nrows() {
+            a[(d, d)] += 1e-4;
+        }
+        let Some(chol) = a.cholesky() else { break };
+        let dq = jj.transpose() * chol.solve(&err);
+        for (k, j) in model.joints.iter().enumerate() {
+            q[nqb + k] = (q[nqb + k] + dq[k]).clamp(j.lower, j.upper);
         }
     }
-    Err(format!(
-        "cannot derive a standing posture: with every foot below its leg's first joint at {STANCE_SHARE} of the leg's length, a foot stays {:.1} mm from its place within the joint limits; write the nominal angles in a robot facts file (`gripsweep robot FILE --draft-facts` prints one to start from, joints at mid-range)",
-        worst.0 * 1000.0
-    ))
+    // A joint limit may keep a foot from the point below its hip: the feet still stand on one
+    // ground, as close to below their hips as the limits allow, if that is within `slack`.
+    if max_z < POSTURE_TOLERANCE.sqrt() && max_xy < slack {
+        return Ok((0..nj).map(|k| q[nqb + k]).collect());
+    }
+    Err(max_err)
 }
 
 /// Every joint at `share` of its range (0 for a joint without finite limits), base level at
