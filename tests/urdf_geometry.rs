@@ -338,6 +338,7 @@ fn a_mesh_trunk_on_the_ground_ends_the_cell_as_fell() {
         &cell("stiff-pd"),
         None,
     );
+    eprintln!("mesh trunk: {} — {}", out.status.name(), out.message);
     assert_eq!(out.status, CellStatus::Fell, "{}", out.message);
     assert!(
         out.message.contains("other than a foot touched the ground"),
@@ -358,6 +359,7 @@ fn a_mesh_trunk_on_the_ground_ends_the_cell_as_fell() {
         &cell("stiff-pd"),
         None,
     );
+    eprintln!("no trunk mesh: {} — {}", out.status.name(), out.message);
     assert!(
         !out.message.contains("other than a foot touched"),
         "{}",
