@@ -199,16 +199,6 @@ fn a_missing_mesh_is_said_once_naming_the_link_and_in_the_manifest() {
     assert_eq!(err.matches("not loaded").count(), 1, "{err}");
 }
 
-fn brindle_with(urdf_from: &str, urdf_to: &str, facts_from: &str, facts_to: &str) -> LoadedRobot {
-    let urdf = std::fs::read_to_string(root().join("scenarios/robots/brindle.urdf"))
-        .unwrap()
-        .replacen(urdf_from, urdf_to, 1);
-    let facts = std::fs::read_to_string(root().join("scenarios/robots/brindle.toml"))
-        .unwrap()
-        .replacen(facts_from, facts_to, 1);
-    LoadedRobot::from_texts("f.toml", &facts, "r.urdf", &urdf).unwrap()
-}
-
 #[test]
 fn urdf_dynamics_feeds_joint_friction_below_what_the_facts_say() {
     // fl_swing and fl_knee get <dynamics>; brindle's facts set coulomb 0.4 / viscous 0.03 for
@@ -256,7 +246,6 @@ fn urdf_dynamics_feeds_joint_friction_below_what_the_facts_say() {
             std::fs::read_to_string(root().join(format!("scenarios/robots/{name}.urdf"))).unwrap();
         assert!(!text.contains("<dynamics"), "{name}");
     }
-    let _ = brindle_with;
 }
 
 #[test]
