@@ -9,6 +9,7 @@ pub mod limits;
 pub mod matrix;
 pub mod metrics;
 pub mod onset;
+pub mod pipe_law;
 pub mod planner;
 pub mod plant;
 pub mod report;
