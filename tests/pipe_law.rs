@@ -147,10 +147,7 @@ fn python_model_from_the_handshake_matches_the_harness_model() {
         let stance = vec![true; feet.len()];
         let mut tau = vec![0.0; nj];
         law.compute(
-            &Observation {
-                q: &q,
-                v: &zero_v,
-            },
+            &Observation { q: &q, v: &zero_v },
             &Target {
                 q: &q,
                 v: &zero_v,
@@ -231,7 +228,11 @@ fn python_study_runs_and_is_identical_across_runs_and_threads() {
             .output()
             .unwrap();
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-        assert!(tagged_processes(&tag).is_empty(), "{:?}", tagged_processes(&tag));
+        assert!(
+            tagged_processes(&tag).is_empty(),
+            "{:?}",
+            tagged_processes(&tag)
+        );
         outs.push(out);
     }
     let rows = read_cells(&outs[0]);
@@ -313,7 +314,10 @@ fn misbehaving_programs_end_their_cells_and_leave_no_process() {
     let rows = read_cells(&out);
     let by = |c: &str| rows.iter().find(|r| r["controller"] == c).unwrap();
     let expect = [
-        ("sleeper", "no reply within 300 ms at control step t = 0.020 s"),
+        (
+            "sleeper",
+            "no reply within 300 ms at control step t = 0.020 s",
+        ),
         ("quitter", "exited (exit status: 3)"),
         ("babbler", "malformed reply: a frame length of"),
     ];
@@ -329,7 +333,11 @@ fn misbehaving_programs_end_their_cells_and_leave_no_process() {
         );
     }
     assert_ne!(by("sound")["status"], "error", "{:?}", by("sound"));
-    assert!(tagged_processes(&tag).is_empty(), "{:?}", tagged_processes(&tag));
+    assert!(
+        tagged_processes(&tag).is_empty(),
+        "{:?}",
+        tagged_processes(&tag)
+    );
     assert!(own_children().is_empty(), "{:?}", own_children());
 }
 
@@ -349,7 +357,10 @@ fn missing_program_is_refused_and_a_changed_one_stops_a_resume() {
     };
     let scn = dir.join("missing.toml");
     std::fs::write(&scn, text("no-such-controller.py")).unwrap();
-    let o = bin().args(["check", scn.to_str().unwrap()]).output().unwrap();
+    let o = bin()
+        .args(["check", scn.to_str().unwrap()])
+        .output()
+        .unwrap();
     assert_eq!(o.status.code(), Some(2));
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(

@@ -358,7 +358,10 @@ fn hello_frame(law: &ExternalLaw, s: &Session) -> Vec<u8> {
         put_u32(&mut f, j.parent as u32);
         put_f64s(&mut f, j.axis.as_slice());
         put_pose(&mut f, &j.x_tree);
-        put_f64s(&mut f, &[j.lower, j.upper, j.velocity_limit, j.effort_limit]);
+        put_f64s(
+            &mut f,
+            &[j.lower, j.upper, j.velocity_limit, j.effort_limit],
+        );
     }
     put_u32(&mut f, s.feet.len() as u32);
     for &fi in s.feet {
@@ -451,7 +454,9 @@ impl Tail {
         }
     }
     fn end_line(&mut self) {
-        let line = String::from_utf8_lossy(&self.current).trim_end().to_string();
+        let line = String::from_utf8_lossy(&self.current)
+            .trim_end()
+            .to_string();
         self.current.clear();
         if self.lines.len() == STDERR_LINES {
             self.lines.pop_front();
@@ -461,7 +466,11 @@ impl Tail {
     fn text(&self) -> String {
         let mut lines: Vec<String> = self.lines.iter().cloned().collect();
         if !self.current.is_empty() {
-            lines.push(String::from_utf8_lossy(&self.current).trim_end().to_string());
+            lines.push(
+                String::from_utf8_lossy(&self.current)
+                    .trim_end()
+                    .to_string(),
+            );
         }
         lines.retain(|l| !l.is_empty());
         if lines.is_empty() {
@@ -552,8 +561,8 @@ impl PipeChild {
             let _ = child.wait();
             return Err(std::io::Error::other("the child's pipes were not opened"));
         };
-        let prepared = set_nonblocking(stdin.as_raw_fd())
-            .and_then(|()| set_nonblocking(stdout.as_raw_fd()));
+        let prepared =
+            set_nonblocking(stdin.as_raw_fd()).and_then(|()| set_nonblocking(stdout.as_raw_fd()));
         if let Err(e) = prepared {
             let _ = child.kill();
             let _ = child.wait();
@@ -640,12 +649,7 @@ impl PipeChild {
 
     /// Receive one frame: its kind and payload (a copy into `out`). A `REFUSE` frame is
     /// turned into [`Fault::Refused`].
-    fn receive(
-        &mut self,
-        out: &mut Vec<u8>,
-        limit: usize,
-        timeout: Duration,
-    ) -> Result<u8, Fault> {
+    fn receive(&mut self, out: &mut Vec<u8>, limit: usize, timeout: Duration) -> Result<u8, Fault> {
         let deadline = Instant::now() + timeout;
         let with_timeout = |f: Fault| match f {
             Fault::Timeout(_) => Fault::Timeout(timeout),
