@@ -276,19 +276,21 @@ fn misbehaving_programs_end_their_cells_and_leave_no_process() {
     let _g = SERIAL.lock().unwrap_or_else(|e| e.into_inner());
     let dir = temp("bad");
     let tag = dir.display().to_string();
-    let law = |name: &str, how: &str| {
+    // Time-outs far above a healthy step even on a loaded machine, so that only the sleeper's
+    // sleep at step 5 can trip one.
+    let law = |name: &str, how: &str, timeout_ms: u32| {
         format!(
-            "[external.{name}]\nprogram = \"{}\"\nargs = [\"--tag\", \"{tag}\"]\nstep_timeout_ms = 300\n[external.{name}.settings]\nlaw = \"joint-pd\"\nmisbehave = \"{how}\"\nmisbehave_at = 5\n",
+            "[external.{name}]\nprogram = \"{}\"\nargs = [\"--tag\", \"{tag}\"]\nstep_timeout_ms = {timeout_ms}\n[external.{name}.settings]\nlaw = \"joint-pd\"\nmisbehave = \"{how}\"\nmisbehave_at = 5\n",
             example_controller()
         )
     };
     let text = format!(
         "name = \"bad\"\nrobot = \"{}\"\nduration = 0.6\n[gait]\nkind = \"stand\"\n[axes]\nrate_hz = [250.0]\ncontroller = [\"sleeper\", \"quitter\", \"babbler\", \"sound\"]\n{}{}{}{}",
         root().join("scenarios/robots/brindle.toml").display(),
-        law("sleeper", "sleep"),
-        law("quitter", "exit"),
-        law("babbler", "garbage"),
-        law("sound", ""),
+        law("sleeper", "sleep", 2500),
+        law("quitter", "exit", 20000),
+        law("babbler", "garbage", 20000),
+        law("sound", "", 20000),
     );
     let scn = dir.join("bad.toml");
     std::fs::write(&scn, text).unwrap();
@@ -316,7 +318,7 @@ fn misbehaving_programs_end_their_cells_and_leave_no_process() {
     let expect = [
         (
             "sleeper",
-            "no reply within 300 ms at control step t = 0.020 s",
+            "no reply within 2500 ms at control step t = 0.020 s",
         ),
         ("quitter", "exited (exit status: 3)"),
         ("babbler", "malformed reply: a frame length of"),
