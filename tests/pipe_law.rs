@@ -398,3 +398,70 @@ fn missing_program_is_refused_and_a_changed_one_stops_a_resume() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(err.contains("echo.py"), "{err}");
 }
+
+/// `[external.<name>]` is checked field by field, each message naming the file and the field.
+#[test]
+fn external_tables_are_checked_field_by_field() {
+    let dir = temp("fields");
+    let prog = root().join("tests/pipe/echo_zero.py");
+    let head = format!(
+        "name = \"f\"\nrobot = \"{}\"\nduration = 1.0\n[gait]\nkind = \"stand\"\n",
+        root().join("scenarios/robots/brindle.toml").display()
+    );
+    let cases = [
+        (
+            format!(
+                "[axes]\ncontroller = [\"stiff-pd\"]\n[external.stiff-pd]\nprogram = \"{}\"\n",
+                prog.display()
+            ),
+            "`external.stiff-pd`",
+            "built-in law",
+        ),
+        (
+            format!(
+                "[axes]\ncontroller = [\"m\"]\n[external.m]\nprogram = \"{}\"\ncolour = 1\n",
+                prog.display()
+            ),
+            "`external.m.colour`",
+            "allowed: program, args",
+        ),
+        (
+            format!(
+                "[axes]\ncontroller = [\"m\"]\n[external.m]\nprogram = \"{}\"\nstep_timeout_ms = 0\n",
+                prog.display()
+            ),
+            "`external.m.step_timeout_ms`",
+            "0 < ms",
+        ),
+        (
+            format!(
+                "[axes]\ncontroller = [\"m\"]\n[external.m]\nprogram = \"{}\"\n[external.m.settings]\nx = {{ a = 1 }}\n",
+                prog.display()
+            ),
+            "`external.m.settings.x`",
+            "allowed: a number",
+        ),
+        (
+            "[axes]\ncontroller = [\"m\"]\n[external.m]\nargs = []\n".to_string(),
+            "`external.m.program`",
+            "missing",
+        ),
+        (
+            format!(
+                "[axes]\ncontroller = [\"other\"]\n[external.m]\nprogram = \"{}\"\n",
+                prog.display()
+            ),
+            "`axes.controller`",
+            ", m (a program of your own: declare it in an [external.<name>] table)",
+        ),
+    ];
+    for (body, field, what) in cases {
+        let text = format!("{head}{body}");
+        let e = gripsweep::scenario::Scenario::from_text("f.toml", &text, Some(&dir))
+            .err()
+            .unwrap_or_else(|| panic!("accepted: {text}"))
+            .0;
+        assert!(e.starts_with("f.toml: field "), "{e}");
+        assert!(e.contains(field) && e.contains(what), "{field}: {e}");
+    }
+}
