@@ -74,6 +74,8 @@ fn main() {
                 r[0].clone(),
                 "812.5".into(),
                 "1490.25".into(),
+                "NaN".into(),
+                "NaN".into(),
                 "3.104".into(),
             ]
         })

@@ -34,6 +34,10 @@ pub struct CellOutcome {
     /// Machine measurements (kept out of `cells.csv`): law compute time per control step.
     pub compute_median_us: f64,
     pub compute_p99_us: f64,
+    /// A piped law's own compute time per control step as its program reports it (the
+    /// round trip is `compute_*`); NaN for the built-in laws.
+    pub child_median_us: f64,
+    pub child_p99_us: f64,
     pub wall_s: f64,
 }
 
@@ -185,6 +189,8 @@ fn error_outcome(message: String) -> CellOutcome {
         },
         compute_median_us: f64::NAN,
         compute_p99_us: f64::NAN,
+        child_median_us: f64::NAN,
+        child_p99_us: f64::NAN,
         wall_s: 0.0,
     }
 }
@@ -244,11 +250,37 @@ fn simulate(
         foot_radius: robot.facts.feet.radius,
         ..law_settings(&base_law, &slope, cell.mu, s.mu_estimate_scale)
     };
-    let mut law: Box<dyn ControlLaw> =
+    // A piped law (`[external.<name>]`) is served by a child process; the others are built
+    // from the registry.
+    let mut pipe_probe = None;
+    let mut law: Box<dyn ControlLaw> = if let Some(ext) = s.external_law(&cell.controller) {
+        let session = crate::pipe_law::Session {
+            model,
+            feet: &feet,
+            foot_radius: robot.facts.feet.radius,
+            dt,
+        };
+        let info = crate::pipe_law::CellInfo {
+            cell_id: &cell.id(),
+            seed: cell.rng_seed(),
+            rate_hz: cell.rate_hz,
+            duration: s.duration,
+            model: &law_model,
+            settings: &settings_law,
+        };
+        match ext.start_cell(&session, &info) {
+            Ok((l, probe)) => {
+                pipe_probe = Some(probe);
+                Box::new(l)
+            }
+            Err(e) => return error_outcome(e),
+        }
+    } else {
         match build_law(&cell.controller, law_model, feet.clone(), &settings_law) {
             Ok(l) => l,
             Err(e) => return error_outcome(e),
-        };
+        }
+    };
 
     let steps = (s.duration / dt).round() as usize;
     let every = (1.0 / (cell.rate_hz * dt)).round().max(1.0) as usize;
@@ -313,6 +345,11 @@ fn simulate(
                 &mut command,
             );
             compute_us.push(t0.elapsed().as_secs_f64() * 1e6);
+            if let Some(p) = &pipe_probe
+                && let Some(e) = p.lock().unwrap_or_else(|e| e.into_inner()).error.take()
+            {
+                return error_outcome(e);
+            }
             acc.control_step(last_law);
             if command.iter().any(|x| !x.is_finite()) {
                 status = CellStatus::Diverged;
@@ -445,12 +482,15 @@ fn simulate(
             compute_us[((compute_us.len() - 1) as f64 * p).round() as usize]
         }
     };
+    let (child_median_us, child_p99_us) = crate::pipe_law::child_time_stats(pipe_probe.as_ref());
     CellOutcome {
         status,
         message,
         metrics,
         compute_median_us: pick(0.5),
         compute_p99_us: pick(0.99),
+        child_median_us,
+        child_p99_us,
         wall_s: 0.0,
     }
 }

@@ -11,6 +11,7 @@ pub mod matrix;
 pub mod meshes;
 pub mod metrics;
 pub mod onset;
+pub mod pipe_law;
 pub mod planner;
 pub mod plant;
 pub mod report;

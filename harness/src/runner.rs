@@ -26,7 +26,16 @@ pub const CELLS_FILE: &str = "cells.csv";
 pub const TIMING_FILE: &str = "timing.csv";
 pub const MANIFEST_FILE: &str = "manifest.json";
 
-pub const TIMING_COLUMNS: [&str; 4] = ["cell_id", "compute_median_us", "compute_p99_us", "wall_s"];
+/// `child_*`: a piped law's own compute time as its program reports it (NaN for built-in
+/// laws); `compute_*` is the law call as the cell sees it (for a piped law, the round trip).
+pub const TIMING_COLUMNS: [&str; 6] = [
+    "cell_id",
+    "compute_median_us",
+    "compute_p99_us",
+    "child_median_us",
+    "child_p99_us",
+    "wall_s",
+];
 
 /// A run failure, with the exit code the command should end with (2: bad input or an output
 /// folder in the way; 1: anything else).
@@ -438,6 +447,10 @@ pub fn manifest_inputs(s: &Scenario, robot: &LoadedRobot) -> Value {
             &listing.join("\n"),
         );
     }
+    // Piped laws: each program's path and SHA-256 (`external.<name>`).
+    for (role, entry) in crate::pipe_law::manifest_entries(&s.external) {
+        inputs[role] = entry;
+    }
     inputs
 }
 
@@ -692,6 +705,8 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
                 cell.id(),
                 num(outcome.compute_median_us),
                 num(outcome.compute_p99_us),
+                num(outcome.child_median_us),
+                num(outcome.child_p99_us),
                 format!("{:.3}", outcome.wall_s),
             ];
             if write_error.is_none()

@@ -57,6 +57,9 @@ pub struct ScenarioFile {
     pub falls: FallsFile,
     #[serde(default)]
     pub onset: Option<OnsetFile>,
+    /// Piped laws declared by the user (`[external.<name>]`, see [`crate::pipe_law`]).
+    #[serde(default)]
+    pub external: toml::Table,
 }
 
 fn default_robot() -> String {
@@ -312,6 +315,9 @@ pub struct Scenario {
     pub noise: NoiseFile,
     pub falls: FallsFile,
     pub onset: Option<OnsetFile>,
+    /// Piped laws declared in `[external.<name>]`, each with its pool of child processes
+    /// (shared by clones; the children leave when the last clone is dropped).
+    pub external: Vec<std::sync::Arc<crate::pipe_law::ExternalLaw>>,
 }
 
 #[derive(Clone, Debug, PartialEq)]
@@ -691,6 +697,15 @@ impl Scenario {
             }
             actuator.push(k);
         }
+        // Piped laws (`[external.<name>]`) join the built-in names for `axes.controller`.
+        let external = crate::pipe_law::parse_external(
+            &file.external,
+            dir.unwrap_or(Path::new(".")),
+            &law_names(),
+        )
+        .map_err(|(field, msg)| fail(&field, msg))?;
+        let mut known: Vec<&str> = law_names();
+        known.extend(external.iter().map(|e| e.name));
         let controller = a
             .controller
             .clone()
@@ -706,12 +721,12 @@ impl Scenario {
             ));
         }
         for (i, c) in controller.iter().enumerate() {
-            if !law_names().contains(&c.as_str()) {
+            if !known.contains(&c.as_str()) {
                 return Err(fail(
                     "axes.controller",
                     format!(
-                        "unknown controller '{c}'; allowed: {}",
-                        law_names().join(", ")
+                        "unknown controller '{c}'; allowed: {} (a program of your own: declare it in an [external.<name>] table)",
+                        known.join(", ")
                     ),
                 ));
             }
@@ -851,6 +866,7 @@ impl Scenario {
             noise: file.noise.clone(),
             falls: file.falls.clone(),
             onset: file.onset.clone(),
+            external,
         })
     }
 
@@ -1082,6 +1098,10 @@ impl Scenario {
     /// Whether the scenario pins any feedback gain of this law at this rate (tuning is then
     /// off for it).
     pub fn gains_pinned(&self, law: &str, rate_hz: f64) -> bool {
+        // A piped law's gains are its program's own (its `[external.<name>.settings]`).
+        if self.external_law(law).is_some() {
+            return true;
+        }
         let gains: Vec<&str> = law_fields(law)
             .iter()
             .filter(|(_, g, _)| *g)
@@ -1092,6 +1112,11 @@ impl Scenario {
                 && t.rate_hz.is_none_or(|r| r == rate_hz)
                 && t.fields.iter().any(|(f, _)| gains.contains(&f.as_str()))
         })
+    }
+
+    /// The piped law declared under this name, if any.
+    pub fn external_law(&self, law: &str) -> Option<&std::sync::Arc<crate::pipe_law::ExternalLaw>> {
+        self.external.iter().find(|e| e.name == law)
     }
 
     /// The settings a cell of this law, rate and actuator runs with: tuned gains when the

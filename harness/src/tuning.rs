@@ -604,7 +604,11 @@ pub fn tune(
                         torque_limit_share: f64::NAN,
                         target_joint_rms_deg: f64::NAN,
                         trials: 0,
-                        reason: "gains pinned in the scenario's [laws] table; not tuned".into(),
+                        reason: if s.external_law(&c.law).is_some() {
+                            "a piped law: its gains are its program's own; not tuned".into()
+                        } else {
+                            "gains pinned in the scenario's [laws] table; not tuned".into()
+                        },
                     }
                 } else {
                     tuner.tune(c)
