@@ -857,12 +857,12 @@ fn check_limits(leg: &Leg, q: &[f64]) -> Result<(), String> {
         Some((k, excess)) => {
             let angle = q[k];
             let side = if angle < leg.lower[k] {
-                format!("{excess:.4} rad below its lower limit {}", leg.lower[k])
+                "below its lower limit"
             } else {
-                format!("{excess:.4} rad above its upper limit {}", leg.upper[k])
+                "above its upper limit"
             };
             Err(format!(
-                "it needs joint '{}' = {angle:.4} rad, {side} (limits [{}, {}])",
+                "it needs joint '{}' = {angle:.4} rad, outside its limits [{}, {}] by {excess:.4} rad ({side})",
                 leg.names[k], leg.lower[k], leg.upper[k]
             ))
         }

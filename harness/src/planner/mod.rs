@@ -705,7 +705,7 @@ impl Plan {
         let body = |b: f64| {
             if (b - h).abs() > 1e-3 {
                 format!(
-                    "a `gait.body_height` nearer the robot's nominal stance height {h:.3} m (now {b} m)"
+                    "a `gait.body_height` nearer the robot's nominal stance height {h:.3} m (now {b:.4} m)"
                 )
             } else {
                 format!(
@@ -722,7 +722,7 @@ impl Plan {
                 body_height,
                 ..
             } => format!(
-                "gait settings that would help: a smaller `gait.amplitude` (now {amplitude} m), or {}",
+                "gait settings that would help: a smaller `gait.amplitude` (now {amplitude:.4} m), or {}",
                 body(body_height)
             ),
             Gait::Crawl {
@@ -733,13 +733,13 @@ impl Plan {
             } => {
                 if stance {
                     format!(
-                        "gait settings that would help: a smaller `gait.margin` (the sideways weight shift; now {:.4} m), a shorter `gait.step_length` (now {step_length} m), or {}",
+                        "gait settings that would help: a smaller `gait.margin` (the sideways weight shift; now {:.4} m), a shorter `gait.step_length` (now {step_length:.4} m), or {}",
                         self.crawl_margin,
                         body(body_height)
                     )
                 } else {
                     format!(
-                        "gait settings that would help: a lower `gait.swing_height` (now {swing_height} m), a shorter `gait.step_length` (now {step_length} m), or {}",
+                        "gait settings that would help: a lower `gait.swing_height` (now {swing_height:.4} m), a shorter `gait.step_length` (now {step_length:.4} m), or {}",
                         body(body_height)
                     )
                 }
@@ -752,12 +752,12 @@ impl Plan {
             } => {
                 if stance {
                     format!(
-                        "gait settings that would help: a shorter `gait.step_length` (now {step_length} m), or {}",
+                        "gait settings that would help: a shorter `gait.step_length` (now {step_length:.4} m), or {}",
                         body(body_height)
                     )
                 } else {
                     format!(
-                        "gait settings that would help: a lower `gait.swing_height` (now {swing_height} m), a shorter `gait.step_length` (now {step_length} m), or {}",
+                        "gait settings that would help: a lower `gait.swing_height` (now {swing_height:.4} m), a shorter `gait.step_length` (now {step_length:.4} m), or {}",
                         body(body_height)
                     )
                 }

@@ -115,7 +115,7 @@ fn closed_form_reads_any_joint_frames_from_the_model() {
             // The numeric method may land on another branch from the nominal seed; the closed
             // form's is the one nearest the nominal posture.
             if let Ok(qn) = numeric {
-                let dist = |q: &[f64; 3]| -> f64 {
+                let dist = |q: &[f64]| -> f64 {
                     (0..3).map(|i| (q[i] - leg.nominal()[i]).powi(2)).sum()
                 };
                 let same = (0..3).all(|i| (q[i] - qn[i]).abs() < 1e-8);
