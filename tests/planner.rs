@@ -357,7 +357,11 @@ fn unreachable_targets_get_a_clear_error() {
         6.0,
     )
     .unwrap_err();
-    assert!(e.0.starts_with("foot '") && e.0.contains(" s: "), "{e}");
+    // The message names the foot, the instant and whether it swings, and a gait setting.
+    assert!(
+        e.0.starts_with("foot '") && e.0.contains(" s (swinging): ") && e.0.contains("`gait."),
+        "{e}"
+    );
 }
 
 #[test]
