@@ -86,8 +86,8 @@ fn yarrow_closed_form(foot: &str, p: &Vec3) -> [f64; 3] {
     let (mx, my, mount) = yarrow_mount(foot);
     let (dx, dy) = (p.x - mx, p.y - my);
     let yaw = dy.atan2(dx) - mount;
-    let yaw = (yaw + std::f64::consts::PI).rem_euclid(2.0 * std::f64::consts::PI)
-        - std::f64::consts::PI;
+    let yaw =
+        (yaw + std::f64::consts::PI).rem_euclid(2.0 * std::f64::consts::PI) - std::f64::consts::PI;
     // Planar: from the lift axis, horizontal reach r and height z of the toe. With lift a and
     // knee b: r = L1 cos a − L2 sin(a + b), z = −L1 sin a − L2 cos(a + b).
     let (r, z) = (dx.hypot(dy) - Y_HUB, p.z);
@@ -117,7 +117,10 @@ fn yaw_first_leg_ik_matches_an_independent_closed_form_and_forward_kinematics() 
         let home = yarrow_fk(&foot, &nominal);
         // The independent forward kinematics agrees with the model's.
         let model_home = legs.model_foot_position(&r.model, i, &nominal, &mut scratch);
-        assert!((home - model_home).norm() < 1e-12, "{foot}: {home} vs {model_home}");
+        assert!(
+            (home - model_home).norm() < 1e-12,
+            "{foot}: {home} vs {model_home}"
+        );
         let (lo, hi) = leg.limits();
         let (mut solved, mut worst) = (0, 0.0f64);
         let steps = [-1.0, -0.5, 0.0, 0.5, 1.0];
@@ -129,7 +132,14 @@ fn yaw_first_leg_ik_matches_an_independent_closed_form_and_forward_kinematics() 
                         .solve(&r.model, i, &target, &nominal, &mut scratch)
                         .unwrap_or_else(|e| panic!("{foot} at {target}: {e}"));
                     let numeric = legs
-                        .solve_with(&r.model, i, &target, IkMethod::Numeric, &nominal, &mut scratch)
+                        .solve_with(
+                            &r.model,
+                            i,
+                            &target,
+                            IkMethod::Numeric,
+                            &nominal,
+                            &mut scratch,
+                        )
                         .unwrap_or_else(|e| panic!("{foot} numeric at {target}: {e}"));
                     let reference = yarrow_closed_form(&foot, &target);
                     for q in [&planner, &numeric] {
@@ -137,7 +147,10 @@ fn yaw_first_leg_ik_matches_an_independent_closed_form_and_forward_kinematics() 
                         worst = worst.max(err);
                         assert!(err < 1e-6, "{foot}: FK(IK) off by {err} at {target}");
                         for k in 0..3 {
-                            assert!(q[k] >= lo[k] - 1e-9 && q[k] <= hi[k] + 1e-9, "{foot}: {q:?}");
+                            assert!(
+                                q[k] >= lo[k] - 1e-9 && q[k] <= hi[k] + 1e-9,
+                                "{foot}: {q:?}"
+                            );
                             assert!(
                                 (q[k] - reference[k]).abs() < 1e-8,
                                 "{foot} at {target}: {q:?} vs the textbook closed form {reference:?}"
@@ -207,7 +220,10 @@ fn four_joint_leg_ik_reproduces_targets_within_limits_and_stays_smooth() {
                     worst = worst.max(err);
                     assert!(err < 1e-6, "{foot}: FK(IK) off by {err}");
                     for k in 0..4 {
-                        assert!(q[k] >= lo[k] - 1e-9 && q[k] <= hi[k] + 1e-9, "{foot}: {q:?}");
+                        assert!(
+                            q[k] >= lo[k] - 1e-9 && q[k] <= hi[k] + 1e-9,
+                            "{foot}: {q:?}"
+                        );
                     }
                     // The direction the leg leaves free holds its nominal value.
                     let held: f64 = (0..4).map(|c| extra[(0, c)] * (q[c] - nominal[c])).sum();
@@ -230,8 +246,13 @@ fn four_joint_leg_ik_reproduces_targets_within_limits_and_stays_smooth() {
             }
             prev = q;
         }
-        assert!(largest < 0.01, "{foot}: a joint jumps {largest} rad between close targets");
-        println!("cairn {foot}: worst |FK(IK(p)) − p| = {worst:.1e} m, largest step {largest:.2e} rad");
+        assert!(
+            largest < 0.01,
+            "{foot}: a joint jumps {largest} rad between close targets"
+        );
+        println!(
+            "cairn {foot}: worst |FK(IK(p)) − p| = {worst:.1e} m, largest step {largest:.2e} rad"
+        );
     }
     println!(
         "numeric solves {}, Levenberg–Marquardt iterations {} ({:.1} per solve)",
@@ -290,7 +311,12 @@ fn a_two_joint_leg_is_refused_with_the_reason() {
     let out = gripsweep(&["check", &scenario.display().to_string()]);
     let err = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(2), "{err}");
-    for part in ["two-joint.toml", "foot 'fl_toe'", "2 moving joints", "point foot"] {
+    for part in [
+        "two-joint.toml",
+        "foot 'fl_toe'",
+        "2 moving joints",
+        "point foot",
+    ] {
         assert!(err.contains(part), "missing {part:?} in: {err}");
     }
 }
@@ -382,7 +408,10 @@ fn planner_errors_speak_of_the_robot_and_name_a_gait_setting() {
     let out = gripsweep(&["check", &scenario.display().to_string()]);
     let err = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(2), "{err}");
-    assert!(err.contains("robots/yarrow.toml") && err.contains("foot '"), "{err}");
+    assert!(
+        err.contains("robots/yarrow.toml") && err.contains("foot '"),
+        "{err}"
+    );
     assert!(!err.contains("fields `gait` and `duration`"), "{err}");
 }
 

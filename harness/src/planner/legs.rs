@@ -394,7 +394,10 @@ impl Legs {
                 nominal: chain.iter().map(|&k| nominal_all[k]).collect(),
                 lower: chain.iter().map(|&k| model.joints[k].lower).collect(),
                 upper: chain.iter().map(|&k| model.joints[k].upper).collect(),
-                names: chain.iter().map(|&k| model.joints[k].name.clone()).collect(),
+                names: chain
+                    .iter()
+                    .map(|&k| model.joints[k].name.clone())
+                    .collect(),
                 joints: chain,
                 extra,
                 pitch_pair,
@@ -446,14 +449,9 @@ impl Legs {
                     }
                     // The numeric method, started at the nominal posture, lands on the same
                     // branch.
-                    if let Ok(qn) = self.solve_with(
-                        model,
-                        i,
-                        &target,
-                        IkMethod::Numeric,
-                        &leg.nominal,
-                        scratch,
-                    ) && (0..3).any(|k| (qn[k] - q[k]).abs() > 1e-8)
+                    if let Ok(qn) =
+                        self.solve_with(model, i, &target, IkMethod::Numeric, &leg.nominal, scratch)
+                        && (0..3).any(|k| (qn[k] - q[k]).abs() > 1e-8)
                     {
                         return false;
                     }
@@ -673,8 +671,8 @@ impl Legs {
         let cols: Vec<usize> = leg.joints.iter().map(|k| 6 + k).collect();
         let project = |q: &mut [f64]| {
             if limited {
-                for k in 0..n {
-                    q[k] = q[k].clamp(leg.lower[k], leg.upper[k]);
+                for ((x, lo), hi) in q.iter_mut().zip(&leg.lower).zip(&leg.upper) {
+                    *x = x.clamp(*lo, *hi);
                 }
             }
         };
@@ -726,8 +724,8 @@ impl Legs {
                 // tolerance to rounding level, so that the angles are as smooth in time as the
                 // closed form's (finite differences of them stay clean).
                 if let Some(delta) = ata.clone().lu().solve(&atr) {
-                    for k in 0..n {
-                        trial[k] = q[k] + delta[k];
+                    for ((t, x), d) in trial.iter_mut().zip(&q).zip(delta.iter()) {
+                        *t = x + d;
                     }
                     project(&mut trial);
                     let t_norm = residual(&trial, s, &mut r_trial);
@@ -744,8 +742,8 @@ impl Legs {
                     mu *= 10.0;
                     continue;
                 };
-                for k in 0..n {
-                    trial[k] = q[k] + delta[k];
+                for ((t, x), d) in trial.iter_mut().zip(&q).zip(delta.iter()) {
+                    *t = x + d;
                 }
                 project(&mut trial);
                 let t_norm = residual(&trial, s, &mut r_trial);
@@ -794,7 +792,9 @@ fn null_space_rows(j: &DMatrix<f64>) -> Option<DMatrix<f64>> {
     let mut rows = DMatrix::zeros(n - 3, n);
     for (r, &k) in order.iter().take(n - 3).enumerate() {
         let v = eig.eigenvectors.column(k);
-        let big = v.iter().fold(0.0f64, |m, &x| if x.abs() > m.abs() { x } else { m });
+        let big = v
+            .iter()
+            .fold(0.0f64, |m, &x| if x.abs() > m.abs() { x } else { m });
         let sign = if big < 0.0 { -1.0 } else { 1.0 };
         for c in 0..n {
             rows[(r, c)] = sign * v[c];
@@ -811,9 +811,9 @@ pub fn singular_reason(model: &Model, joints: &[usize], j_leg: &DMatrix<f64>) ->
     // A revolute joint's column is a × r: its norm is the foot's distance from the axis.
     let norms: Vec<f64> = (0..n).map(|c| j_leg.column(c).norm()).collect();
     let longest = norms.iter().fold(0.0f64, |m, &x| m.max(x));
-    if let Some(k) = (0..n).find(|&k| {
-        model.joints[joints[k]].kind == JointKind::Revolute && norms[k] < 0.1 * longest
-    }) {
+    if let Some(k) = (0..n)
+        .find(|&k| model.joints[joints[k]].kind == JointKind::Revolute && norms[k] < 0.1 * longest)
+    {
         return format!(
             "the foot is {:.4} m from the axis of joint '{}', so turning that joint barely moves it (a foot under a hip yaw axis, say); a posture that keeps the foot off that axis avoids it",
             norms[k], model.joints[joints[k]].name
