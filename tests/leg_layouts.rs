@@ -473,3 +473,34 @@ fn new_robots_stand_shift_and_crawl_and_a_model_based_law_holds_the_crawl() {
         assert_eq!(row[status], "ok", "{name} with {law}: {row:?}");
     }
 }
+
+/// yarrow with its fore-left knee folded so the toe sits right under the hip yaw axis: turning
+/// the yaw joint no longer moves the foot. `gripsweep robot` refuses it and says why.
+#[test]
+fn a_foot_under_its_yaw_axis_is_refused_as_a_singular_leg_with_the_reason() {
+    let dir = scratch("under_yaw");
+    std::fs::copy(
+        root().join("scenarios/robots/yarrow.urdf"),
+        dir.join("yarrow.urdf"),
+    )
+    .unwrap();
+    // Horizontal reach from the yaw axis: 0.05 + 0.18 cos(lift) − 0.26 sin(lift + knee) = 0.
+    let lift: f64 = -0.4;
+    let knee = ((Y_HUB + Y_UP * lift.cos()) / Y_LOW).asin() - lift;
+    let facts = std::fs::read_to_string(root().join("scenarios/robots/yarrow.toml")).unwrap();
+    let facts = facts.replace("fl_knee = 0.4", &format!("fl_knee = {knee}"));
+    let path = dir.join("under-yaw.toml");
+    std::fs::write(&path, facts).unwrap();
+    let out = gripsweep(&["robot", &path.display().to_string()]);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    for part in [
+        "under-yaw.toml",
+        "the planner cannot serve this robot",
+        "foot 'fl_toe'",
+        "singular",
+        "from the axis of joint 'fl_yaw'",
+    ] {
+        assert!(err.contains(part), "missing {part:?} in: {err}");
+    }
+}
