@@ -52,6 +52,9 @@ const NUMERIC_TOLERANCE: f64 = 1e-13;
 /// Largest forward-kinematics mismatch an analytic solution may show before the numeric
 /// method is used instead, m.
 const ANALYTIC_CHECK: f64 = 1e-10;
+/// A numeric descent that ends closer than this to the target without converging has stalled
+/// at a singular posture (a reachable target the leg cannot be steered to), m.
+const STALL_GAP: f64 = 1e-4;
 /// Slack on joint limits for solutions that land on a limit up to rounding, rad.
 const LIMIT_SLACK: f64 = 1e-9;
 
@@ -645,7 +648,22 @@ impl Legs {
                 return Err(format!("target {}: {e}", fmt3(target)));
             }
         }
-        let gap = closest.map_or(f64::INFINITY, |c| c.residual);
+        let gap = closest.as_ref().map_or(f64::INFINITY, |c| c.residual);
+        if let Some(c) = closest.as_ref().filter(|c| c.residual < STALL_GAP) {
+            // Stalled next to the target: the leg is at (or next to) a singular posture
+            // where some direction of foot motion is lost.
+            for (&joint, &angle) in leg.joints.iter().zip(&c.q) {
+                s.q[7 + joint] = angle;
+            }
+            forward_kinematics(model, &mut s.ws, &s.q);
+            frame_jacobian(model, &s.ws, leg.frame, &mut s.jac, 0, false);
+            let j_leg = DMatrix::from_fn(3, n, |r, k| s.jac[(r, 6 + leg.joints[k])]);
+            return Err(format!(
+                "target {}: the leg stops {gap:.1e} m short of it at a singular posture: {}",
+                fmt3(target),
+                singular_reason(model, &leg.joints, &j_leg)
+            ));
+        }
         Err(format!(
             "target {} is out of reach by {gap:.4} m (the closest the leg gets within its joint limits)",
             fmt3(target)

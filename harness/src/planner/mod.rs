@@ -990,8 +990,15 @@ impl Plan {
             // columns, 0 when singular): cheaper than singular values on every knot.
             let columns: f64 = (0..n).map(|c| square.column(c).norm()).product();
             let det = square.determinant();
+            // The ratio is blind to a column that shrinks to nothing (a joint whose axis
+            // passes through the foot, e.g. a foot under a hip yaw axis), so such a column
+            // counts as singular on its own.
+            let longest = (0..n)
+                .map(|c| square.column(c).norm())
+                .fold(0.0f64, f64::max);
+            let lost = (0..n).any(|c| square.column(c).norm() < SINGULAR_RATIO * longest);
             let inverse = match square.clone().try_inverse() {
-                Some(inv) if det.abs() > SINGULAR_RATIO * columns => inv,
+                Some(inv) if det.abs() > SINGULAR_RATIO * columns && !lost => inv,
                 _ => {
                     let j_leg = DMatrix::from_fn(3, n, |r, c| scratch.jac[(r, cols[c])]);
                     return Err(at(
