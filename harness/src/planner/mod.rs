@@ -1004,8 +1004,15 @@ impl Plan {
                     return Err(at(
                         i,
                         format!(
-                            "the leg is singular (|det J| / Π|columns of J| = {:.1e}): {}",
-                            det.abs() / columns,
+                            "the leg is singular{}: {}",
+                            if lost {
+                                String::new()
+                            } else {
+                                format!(
+                                    " (|det J| / Π|columns of J| = {:.1e})",
+                                    det.abs() / columns
+                                )
+                            },
                             legs::singular_reason(model, leg.joints(), &j_leg)
                         ),
                         out,
