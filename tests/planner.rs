@@ -217,7 +217,7 @@ fn leg_ik_round_trips_over_the_workspace_of_both_robots() {
         for i in 0..legs.len() {
             let leg = legs.leg(i);
             let nominal = leg.nominal();
-            let home = legs.model_foot_position(model, i, &nominal, &mut scratch);
+            let home = legs.model_foot_position(model, i, nominal, &mut scratch);
             let mut methods = vec![IkMethod::Numeric];
             if leg.has_closed_form() {
                 methods.push(IkMethod::Analytic);
@@ -232,7 +232,7 @@ fn leg_ik_round_trips_over_the_workspace_of_both_robots() {
                         for &m in &methods {
                             tried += 1;
                             let Ok(angles) =
-                                legs.solve_with(model, i, &target, m, &nominal, &mut scratch)
+                                legs.solve_with(model, i, &target, m, nominal, &mut scratch)
                             else {
                                 continue;
                             };
@@ -316,7 +316,7 @@ fn unreachable_targets_get_a_clear_error() {
             }
             for m in methods {
                 let e = legs
-                    .solve_with(model, i, &far, m, &leg.nominal(), &mut scratch)
+                    .solve_with(model, i, &far, m, leg.nominal(), &mut scratch)
                     .unwrap_err();
                 assert!(e.contains("out of reach"), "{} {m:?}: {e}", leg.foot());
             }
@@ -357,7 +357,11 @@ fn unreachable_targets_get_a_clear_error() {
         6.0,
     )
     .unwrap_err();
-    assert!(e.0.starts_with("foot '") && e.0.contains(" s: "), "{e}");
+    // The message names the foot, the instant and whether it swings, and a gait setting.
+    assert!(
+        e.0.starts_with("foot '") && e.0.contains(" s (swinging): ") && e.0.contains("`gait."),
+        "{e}"
+    );
 }
 
 #[test]

@@ -562,6 +562,32 @@ pub fn summary_text(robot: &LoadedRobot, with_armature: bool) -> String {
     s
 }
 
+fn ik_name(method: crate::planner::IkMethod) -> &'static str {
+    match method {
+        crate::planner::IkMethod::Analytic => "closed form",
+        crate::planner::IkMethod::Numeric => "numeric",
+    }
+}
+
+/// The planner's stance check, for the human summary.
+fn stance_text(st: &crate::robot::StanceCheck) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s);
+    let _ = writeln!(
+        s,
+        "planner check: ok — stands in the nominal posture ({:.4} m) and shifts its weight {:.4} m (h/10) towards each foot on flat ground",
+        st.height, st.shift
+    );
+    for (foot, n, method) in &st.legs {
+        let _ = writeln!(
+            s,
+            "  leg of {foot:<12} {n} joints, inverse kinematics {}",
+            ik_name(*method)
+        );
+    }
+    s
+}
+
 /// The whole `robot` command: returns what goes to stdout.
 pub fn run(args: &RobotArgs) -> Result<String, CliError> {
     if args.draft_facts {
@@ -603,10 +629,40 @@ pub fn run(args: &RobotArgs) -> Result<String, CliError> {
     if args.state.is_some() && !args.json {
         return fail("--state needs --json (the dynamics terms are printed as JSON only)");
     }
+    // A robot the planner cannot serve is refused here, not at the first run.
+    let stance = match &robot.facts {
+        Some(facts) => Some(
+            crate::robot::stance_check(&robot.model, facts).map_err(|e| {
+                CliError(format!(
+                    "{}: the planner cannot serve this robot: {e}",
+                    robot.source
+                ))
+            })?,
+        ),
+        None => None,
+    };
     if !args.json {
-        return Ok(summary_text(&robot, args.with_armature));
+        let mut text = summary_text(&robot, args.with_armature);
+        if let Some(st) = &stance {
+            text.push_str(&stance_text(st));
+        }
+        return Ok(text);
     }
     let mut out = summary_json(&robot, args.with_armature);
+    if let Some(st) = &stance {
+        out.insert(
+            "planner_check".into(),
+            json!({
+                "stand": true,
+                "weight_shift_m": st.shift,
+                "legs": st.legs.iter().map(|(foot, n, method)| json!({
+                    "foot": foot,
+                    "joints": n,
+                    "ik": ik_name(*method),
+                })).collect::<Vec<_>>(),
+            }),
+        );
+    }
     if let Some(path) = &args.state {
         let state = read_state(path, &robot.model)?;
         out.insert("state_file".into(), json!(path.display().to_string()));

@@ -199,3 +199,59 @@ impl LoadedRobot {
         nominal_stance(&self.model, &self.facts)
     }
 }
+
+/// What the planner's stance check found: the robot stands in its nominal posture and shifts
+/// its weight towards each foot in turn (amplitude h/10, the scenario default) on flat ground.
+#[derive(Clone, Debug, PartialEq)]
+pub struct StanceCheck {
+    /// Nominal stance height h, m.
+    pub height: f64,
+    /// Weight-shift amplitude checked, m.
+    pub shift: f64,
+    /// Per foot: the number of joints of its leg and the leg's inverse-kinematics method.
+    pub legs: Vec<(String, usize, crate::planner::IkMethod)>,
+}
+
+/// Run the planner's stance check on a model with its facts: the legs are found (each of three
+/// or more joints), the nominal stance is planned, and so is a weight shift of h/10 towards
+/// each foot in turn. An error names the cause in the robot's terms.
+pub fn stance_check(model: &Model, facts: &RobotFacts) -> Result<StanceCheck, String> {
+    use crate::planner::{Gait, Legs, Plan};
+    let flat = crate::plant::terrain::Slope::degrees(0.0);
+    let legs = Legs::new(model, facts).map_err(|e| e.0)?;
+    let height = nominal_stance(model, facts).height;
+    if !(height.is_finite() && height > 0.0) {
+        return Err(format!(
+            "the nominal posture puts the feet {:.3} m above the base frame: the robot cannot stand on them",
+            -height
+        ));
+    }
+    Plan::build(model, facts, &flat, &Gait::Stand, 1.0)
+        .map_err(|e| format!("the nominal stance cannot be planned: {e}"))?;
+    let shift = height / 10.0;
+    if legs.len() >= 3 {
+        let period = 2.0 * (legs.len() as f64 / 4.0).max(1.0);
+        Plan::build(
+            model,
+            facts,
+            &flat,
+            &Gait::WeightShift {
+                amplitude: shift,
+                period,
+                body_height: height,
+            },
+            period + 0.5,
+        )
+        .map_err(|e| format!("a weight shift of {shift:.4} m (h/10) cannot be planned: {e}"))?;
+    }
+    Ok(StanceCheck {
+        height,
+        shift,
+        legs: (0..legs.len())
+            .map(|i| {
+                let leg = legs.leg(i);
+                (leg.foot().to_string(), leg.n(), leg.method())
+            })
+            .collect(),
+    })
+}

@@ -908,9 +908,12 @@ impl Scenario {
                 self.duration,
             )
             .map_err(|e| {
+                // The planner's message names the cause (a gait field, or the robot's foot,
+                // instant and joint) and the setting that would help; the robot file is named
+                // here so a cause in the robot is not taken for one in the scenario.
                 ScenarioError(format!(
-                    "{}: fields `gait` and `duration` on the {deg}° slope of `axes.slope_deg`: {e}",
-                    self.source
+                    "{}: the plan for robot {} on the {deg}° slope of `axes.slope_deg`: {e}",
+                    self.source, robot.source
                 ))
             })?;
         }

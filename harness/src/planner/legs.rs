@@ -1,22 +1,32 @@
-//! Leg inverse kinematics: where must a leg's three joints be for its foot centre to sit at a
-//! target given in the base frame?
+//! Leg inverse kinematics: where must a leg's joints be for its foot centre to sit at a target
+//! given in the base frame? Any serial leg of three or more joints (revolute or prismatic, any
+//! axis order: abduction first, hip yaw first, tilted axes) is served.
 //!
-//! * Analytic, for the common leg whose first joint turns about any axis (abduction or hip yaw)
-//!   and whose second and third joints turn about parallel axes (hip and knee pitch). The
-//!   geometry is read from the model's joint placements at build time, never assumed: the
-//!   pitch joints keep the foot at a fixed offset along their common axis, which fixes the
-//!   first angle (a sum of a sine and a cosine, two solutions); the distance from the hip axis
-//!   to the foot fixes the knee (law of cosines in the plane normal to the pitch axes, two
-//!   solutions); the hip angle then follows (the textbook decomposition of the 3-DOF leg, e.g.
-//!   Siciliano & Khatib (eds.), "Springer Handbook of Robotics", 2016, ch. 2 on inverse
+//! * Analytic, for the common three-joint leg whose first joint turns about any axis
+//!   (abduction or hip yaw) and whose second and third joints turn about parallel axes (hip and
+//!   knee pitch). The geometry is read from the model's joint placements at build time, never
+//!   assumed: the pitch joints keep the foot at a fixed offset along their common axis, which
+//!   fixes the first angle (a sum of a sine and a cosine, two solutions); the distance from the
+//!   hip axis to the foot fixes the knee (law of cosines in the plane normal to the pitch axes,
+//!   two solutions); the hip angle then follows (the textbook decomposition of the 3-DOF leg,
+//!   e.g. Siciliano & Khatib (eds.), "Springer Handbook of Robotics", 2016, ch. 2 on inverse
 //!   kinematics by subproblems). Of the up to four solutions, the one within the joint limits
-//!   closest to the nominal posture is taken.
-//! * Numeric, for any other three-joint leg (and as the fallback when the analytic solution
-//!   fails its forward-kinematics check): Levenberg–Marquardt damped least squares on the
-//!   leg's three columns of the model's foot Jacobian (`frame_jacobian`), started from a seed
-//!   (Marquardt, "An algorithm for least-squares estimation of nonlinear parameters", SIAM J.
-//!   Appl. Math. 1963; Wampler, "Manipulator inverse kinematic solutions based on vector
-//!   formulations and damped least-squares methods", IEEE Trans. SMC 1986).
+//!   closest to the nominal posture is taken. It is used only when it reproduces the nominal
+//!   posture and nearby targets through the model's forward kinematics and agrees there with
+//!   the numeric method.
+//! * Numeric, for any other leg: Levenberg–Marquardt damped least squares on the leg's
+//!   columns of the model's foot Jacobian (`frame_jacobian`), each step projected onto the
+//!   joint limits (Marquardt, "An algorithm for least-squares estimation of nonlinear
+//!   parameters", SIAM J. Appl. Math. 1963; Wampler, "Manipulator inverse kinematic solutions
+//!   based on vector formulations and damped least-squares methods", IEEE Trans. SMC 1986;
+//!   the projection as in Kanzow, Yamashita & Fukushima, J. Comput. Appl. Math. 2004), warm
+//!   started from the previous instant's angles and, when that fails, from the nominal
+//!   posture and a fixed set of seeds around it. A leg of more than three joints has more
+//!   joints than a point foot has coordinates; the directions its Jacobian leaves free at the
+//!   nominal posture are held at their nominal values (configuration control, Seraji 1989),
+//!   which makes the system square, the solution unique near the nominal posture, and its
+//!   rates and accelerations exact derivatives of its angles.
+//! * A leg of fewer than three joints is refused: a point foot has three coordinates to place.
 
 use super::PlanError;
 use gripsweep_controllers::algorithms::{
@@ -42,6 +52,9 @@ const NUMERIC_TOLERANCE: f64 = 1e-13;
 /// Largest forward-kinematics mismatch an analytic solution may show before the numeric
 /// method is used instead, m.
 const ANALYTIC_CHECK: f64 = 1e-10;
+/// A numeric descent that ends closer than this to the target without converging has stalled
+/// at a singular posture (a reachable target the leg cannot be steered to), m.
+const STALL_GAP: f64 = 1e-4;
 /// Slack on joint limits for solutions that land on a limit up to rounding, rad.
 const LIMIT_SLACK: f64 = 1e-9;
 
@@ -207,16 +220,25 @@ fn nearest_turn(q: f64, reference: f64) -> f64 {
     q - 2.0 * PI * ((q - reference) / (2.0 * PI)).round()
 }
 
-/// One leg: its foot frame, its three joints from the base outward, how it is solved.
+/// Most joints a leg may have (a bound on the numeric method's work per target).
+pub const MAX_LEG_JOINTS: usize = 8;
+
+/// One leg: its foot frame, its joints from the base outward, how it is solved.
 #[derive(Clone, Debug)]
 pub struct Leg {
     foot: String,
     frame: usize,
-    joints: [usize; 3],
-    nominal: [f64; 3],
-    lower: [f64; 3],
-    upper: [f64; 3],
-    names: [String; 3],
+    joints: Vec<usize>,
+    nominal: Vec<f64>,
+    lower: Vec<f64>,
+    upper: Vec<f64>,
+    names: Vec<String>,
+    /// Rows that fix the joints a point foot leaves free (n − 3 rows of n): the directions of
+    /// the Jacobian's null space at the nominal posture, held at their nominal value, so that
+    /// IK has one smooth solution and its rates follow from one square system (configuration
+    /// control: Seraji, "Configuration control of redundant manipulators: theory and
+    /// implementation", IEEE Trans. Robotics and Automation 5(4), 1989).
+    extra: DMatrix<f64>,
     pitch_pair: Option<PitchPair>,
     method: IkMethod,
 }
@@ -231,12 +253,20 @@ impl Leg {
         self.frame
     }
     /// Indices of the leg's joints (model order), from the base outward.
-    pub fn joints(&self) -> [usize; 3] {
-        self.joints
+    pub fn joints(&self) -> &[usize] {
+        &self.joints
+    }
+    /// Number of joints of the leg (three or more).
+    pub fn n(&self) -> usize {
+        self.joints.len()
     }
     /// Nominal angles of the leg's joints.
-    pub fn nominal(&self) -> [f64; 3] {
-        self.nominal
+    pub fn nominal(&self) -> &[f64] {
+        &self.nominal
+    }
+    /// Joint limits, rad (the leg's joints in order).
+    pub fn limits(&self) -> (&[f64], &[f64]) {
+        (&self.lower, &self.upper)
     }
     /// The method chosen for this leg.
     pub fn method(&self) -> IkMethod {
@@ -246,15 +276,23 @@ impl Leg {
     pub fn has_closed_form(&self) -> bool {
         self.pitch_pair.is_some()
     }
+    /// The rows fixing a redundant leg's extra joints (empty for three joints).
+    pub fn extra_rows(&self) -> &DMatrix<f64> {
+        &self.extra
+    }
 }
 
-/// Preallocated buffers for the numeric method.
+/// Preallocated buffers for the numeric method, and its counters.
 #[derive(Clone, Debug)]
 pub struct IkScratch {
     ws: Workspace,
     /// Configuration with the base at the world origin, so that world = base frame.
     q: DVector<f64>,
     jac: DMatrix<f64>,
+    /// Numeric solves done and Levenberg–Marquardt iterations they took (for benchmarks and
+    /// reports; they do not change any answer).
+    pub numeric_solves: u64,
+    pub numeric_iterations: u64,
 }
 
 /// The legs of a robot, one per foot in the facts' order.
@@ -263,8 +301,15 @@ pub struct Legs {
     legs: Vec<Leg>,
 }
 
+/// One run of the numeric method: the angles reached, the residual left, iterations used.
+struct Descent {
+    q: Vec<f64>,
+    residual: f64,
+    iterations: u64,
+}
+
 impl Legs {
-    /// Find each foot's leg in the model, check it is a chain of exactly three moving joints
+    /// Find each foot's leg in the model, check it is a chain of three or more moving joints
     /// from the base that no other leg shares, and pick its method: the closed form when the
     /// structure fits and it reproduces the nominal posture and nearby targets, else numeric.
     pub fn new(model: &Model, facts: &RobotFacts) -> Result<Legs, PlanError> {
@@ -276,6 +321,13 @@ impl Legs {
         let nominal_all = facts.nominal_joints(model);
         let mut owner: Vec<Option<usize>> = vec![None; model.n_joints()];
         let mut legs = Vec::with_capacity(facts.feet.frames.len());
+        let mut ws = Workspace::new(model);
+        let mut jac = DMatrix::zeros(3, model.nv());
+        let mut q_nom = model.neutral();
+        for (k, &x) in nominal_all.iter().enumerate() {
+            q_nom[7 + k] = x;
+        }
+        forward_kinematics(model, &mut ws, &q_nom);
         for (i, name) in facts.feet.frames.iter().enumerate() {
             let frame = model.frame_index(name).ok_or_else(|| {
                 PlanError(format!(
@@ -289,9 +341,24 @@ impl Legs {
                 b = model.parent(b);
             }
             chain.reverse();
-            if chain.len() != 3 {
+            if chain.len() < 3 {
+                let names: Vec<&str> = chain
+                    .iter()
+                    .map(|&k| model.joints[k].name.as_str())
+                    .collect();
                 return Err(PlanError(format!(
-                    "foot '{name}': its leg has {} moving joints between the base and the foot; the planner's leg inverse kinematics needs exactly 3",
+                    "foot '{name}': its leg has {} moving joints between the base and the foot ({}); the planner needs at least 3 per leg: a point foot has three coordinates to place in space, and fewer joints reach only a curve or surface of them",
+                    chain.len(),
+                    if names.is_empty() {
+                        "none".to_string()
+                    } else {
+                        names.join(", ")
+                    }
+                )));
+            }
+            if chain.len() > MAX_LEG_JOINTS {
+                return Err(PlanError(format!(
+                    "foot '{name}': its leg has {} moving joints between the base and the foot; the planner serves at most {MAX_LEG_JOINTS} per leg",
                     chain.len()
                 )));
             }
@@ -304,17 +371,38 @@ impl Legs {
                 }
                 owner[k] = Some(i);
             }
-            let joints = [chain[0], chain[1], chain[2]];
-            let foot_offset = model.frames[frame].placement.trans;
-            let pitch_pair = PitchPair::from_model(model, &joints, &foot_offset);
+            let n = chain.len();
+            // The extra rows: the null space of the leg's foot Jacobian at the nominal posture.
+            frame_jacobian(model, &ws, frame, &mut jac, 0, false);
+            let j_leg = DMatrix::from_fn(3, n, |r, c| jac[(r, 6 + chain[c])]);
+            let extra = if n == 3 {
+                DMatrix::zeros(0, 3)
+            } else {
+                null_space_rows(&j_leg).ok_or_else(|| {
+                    PlanError(format!(
+                        "foot '{name}': in the nominal posture the leg's joints cannot move the foot in every direction (its Jacobian has rank < 3): {}",
+                        singular_reason(model, &chain, &j_leg)
+                    ))
+                })?
+            };
+            let pitch_pair = if n == 3 {
+                let joints3 = [chain[0], chain[1], chain[2]];
+                PitchPair::from_model(model, &joints3, &model.frames[frame].placement.trans)
+            } else {
+                None
+            };
             legs.push(Leg {
                 foot: name.clone(),
                 frame,
-                joints,
-                nominal: joints.map(|k| nominal_all[k]),
-                lower: joints.map(|k| model.joints[k].lower),
-                upper: joints.map(|k| model.joints[k].upper),
-                names: joints.map(|k| model.joints[k].name.clone()),
+                nominal: chain.iter().map(|&k| nominal_all[k]).collect(),
+                lower: chain.iter().map(|&k| model.joints[k].lower).collect(),
+                upper: chain.iter().map(|&k| model.joints[k].upper).collect(),
+                names: chain
+                    .iter()
+                    .map(|&k| model.joints[k].name.clone())
+                    .collect(),
+                joints: chain,
+                extra,
                 pitch_pair,
                 method: IkMethod::Numeric,
             });
@@ -329,8 +417,9 @@ impl Legs {
         Ok(set)
     }
 
-    /// The closed form must give back the nominal angles for the nominal foot position, and
-    /// reproduce nearby targets through the model's own forward kinematics.
+    /// The closed form must give back the nominal angles for the nominal foot position, agree
+    /// with the numeric method there, and reproduce nearby targets through the model's own
+    /// forward kinematics.
     fn closed_form_self_check(&self, model: &Model, i: usize, scratch: &mut IkScratch) -> bool {
         let leg = &self.legs[i];
         if leg.pitch_pair.is_none() {
@@ -355,10 +444,20 @@ impl Legs {
                 // nothing about the closed form, so only real answers are checked.
                 if let Ok(q) =
                     self.solve_with(model, i, &target, IkMethod::Analytic, &leg.nominal, scratch)
-                    && (self.model_foot_position(model, i, &q, scratch) - target).norm()
-                        > ANALYTIC_CHECK
                 {
-                    return false;
+                    if (self.model_foot_position(model, i, &q, scratch) - target).norm()
+                        > ANALYTIC_CHECK
+                    {
+                        return false;
+                    }
+                    // The numeric method, started at the nominal posture, lands on the same
+                    // branch.
+                    if let Ok(qn) =
+                        self.solve_with(model, i, &target, IkMethod::Numeric, &leg.nominal, scratch)
+                        && (0..3).any(|k| (qn[k] - q[k]).abs() > 1e-8)
+                    {
+                        return false;
+                    }
                 }
             }
         }
@@ -370,6 +469,8 @@ impl Legs {
             ws: Workspace::new(model),
             q: model.neutral(),
             jac: DMatrix::zeros(3, model.nv()),
+            numeric_solves: 0,
+            numeric_iterations: 0,
         }
     }
 
@@ -385,13 +486,13 @@ impl Legs {
         &self.legs[i]
     }
 
-    /// Foot centre in the base frame for the leg's three angles, by the model's forward
-    /// kinematics (base at the origin).
+    /// Foot centre in the base frame for the leg's angles, by the model's forward kinematics
+    /// (base at the origin).
     pub fn model_foot_position(
         &self,
         model: &Model,
         i: usize,
-        angles: &[f64; 3],
+        angles: &[f64],
         scratch: &mut IkScratch,
     ) -> Vec3 {
         let leg = &self.legs[i];
@@ -410,19 +511,20 @@ impl Legs {
         model: &Model,
         i: usize,
         target: &Vec3,
-        seed: &[f64; 3],
+        seed: &[f64],
         scratch: &mut IkScratch,
-    ) -> Result<[f64; 3], String> {
+    ) -> Result<Vec<f64>, String> {
         let leg = &self.legs[i];
         if leg.method == IkMethod::Analytic {
             match self.solve_with(model, i, target, IkMethod::Analytic, seed, scratch) {
                 Ok(q) => {
                     let pair = leg.pitch_pair.as_ref().expect("analytic legs have one");
-                    if (pair.forward(&q) - target).norm() <= ANALYTIC_CHECK {
+                    if (pair.forward(&[q[0], q[1], q[2]]) - target).norm() <= ANALYTIC_CHECK {
                         return Ok(q);
                     }
                 }
-                // Out of reach or outside the limits: the numeric method would not do better.
+                // Out of reach or outside the limits: the numeric method would not do better
+                // (the closed form lists every solution).
                 Err(e) => return Err(e),
             }
         }
@@ -436,31 +538,26 @@ impl Legs {
         i: usize,
         target: &Vec3,
         method: IkMethod,
-        seed: &[f64; 3],
+        seed: &[f64],
         scratch: &mut IkScratch,
-    ) -> Result<[f64; 3], String> {
+    ) -> Result<Vec<f64>, String> {
         let leg = &self.legs[i];
         if !target.iter().all(|x| x.is_finite()) {
             return Err(format!("target {target:?} is not finite"));
         }
+        if seed.len() != leg.n() {
+            return Err(format!(
+                "a seed of {} angles for a leg of {} joints",
+                seed.len(),
+                leg.n()
+            ));
+        }
         let q = match method {
-            IkMethod::Analytic => self.closed_form(leg, target)?,
+            IkMethod::Analytic => self.closed_form(leg, target)?.to_vec(),
             IkMethod::Numeric => self.numeric(model, leg, target, seed, scratch)?,
         };
-        self.check_limits(leg, &q)?;
+        check_limits(leg, &q)?;
         Ok(q)
-    }
-
-    fn check_limits(&self, leg: &Leg, q: &[f64; 3]) -> Result<(), String> {
-        for (k, &angle) in q.iter().enumerate() {
-            if angle < leg.lower[k] - LIMIT_SLACK || angle > leg.upper[k] + LIMIT_SLACK {
-                return Err(format!(
-                    "it needs joint '{}' = {angle:.4} rad, outside its limits [{}, {}]",
-                    leg.names[k], leg.lower[k], leg.upper[k]
-                ));
-            }
-        }
-        Ok(())
     }
 
     /// The closed-form solution within the limits closest to the nominal posture.
@@ -474,14 +571,17 @@ impl Legs {
             .solve(target, &mut roots)
             .map_err(|why| format!("target {} is out of reach: {why}", fmt3(target)))?;
         let mut best: Option<([f64; 3], f64)> = None;
-        let mut first_violation = None;
+        let mut least_violation: Option<(String, f64)> = None;
         for root in roots.iter().take(n) {
             let q = [0, 1, 2].map(|k| nearest_turn(root[k], leg.nominal[k]));
             if (pair.forward(&q) - target).norm() > 1e-6 {
                 continue;
             }
-            if let Err(e) = self.check_limits(leg, &q) {
-                first_violation.get_or_insert(e);
+            if let Err(e) = check_limits(leg, &q) {
+                let excess = limit_excess(leg, &q);
+                if least_violation.as_ref().is_none_or(|(_, x)| excess < *x) {
+                    least_violation = Some((e, excess));
+                }
                 continue;
             }
             let dist: f64 = (0..3).map(|k| (q[k] - leg.nominal[k]).powi(2)).sum();
@@ -489,9 +589,9 @@ impl Legs {
                 best = Some((q, dist));
             }
         }
-        match (best, first_violation) {
+        match (best, least_violation) {
             (Some((q, _)), _) => Ok(q),
-            (None, Some(e)) => Err(format!("target {}: {e}", fmt3(target))),
+            (None, Some((e, _))) => Err(format!("target {}: {e}", fmt3(target))),
             (None, None) => Err(format!(
                 "target {} is out of reach (no closed-form root reproduces it)",
                 fmt3(target)
@@ -499,56 +599,176 @@ impl Legs {
         }
     }
 
+    /// The numeric method: projected Levenberg–Marquardt from several deterministic seeds
+    /// (the given one first, so a trajectory keeps its branch; then the nominal posture and
+    /// nominal postures with one joint turned ±0.5 rad); the first seed that converges within
+    /// the limits wins. Without any, the failure is explained: when the same method without
+    /// limits converges, the joint limit in the way and by how much; else how far the target
+    /// is out of reach.
     fn numeric(
         &self,
         model: &Model,
         leg: &Leg,
         target: &Vec3,
-        seed: &[f64; 3],
+        seed: &[f64],
         s: &mut IkScratch,
-    ) -> Result<[f64; 3], String> {
-        let cols = leg.joints.map(|k| 6 + k);
-        let mut q = *seed;
-        let residual = |q: &[f64; 3], s: &mut IkScratch| {
+    ) -> Result<Vec<f64>, String> {
+        let n = leg.n();
+        let clamp = |q: &[f64]| -> Vec<f64> {
+            (0..n)
+                .map(|k| q[k].clamp(leg.lower[k], leg.upper[k]))
+                .collect()
+        };
+        let mut seeds: Vec<Vec<f64>> = vec![clamp(seed), leg.nominal.clone()];
+        for k in 0..n {
+            for d in [0.5, -0.5] {
+                let mut q = leg.nominal.clone();
+                q[k] += d;
+                seeds.push(clamp(&q));
+            }
+        }
+        s.numeric_solves += 1;
+        let mut closest: Option<Descent> = None;
+        for start in &seeds {
+            let run = self.descend(model, leg, target, start, true, s);
+            s.numeric_iterations += run.iterations;
+            if run.residual < NUMERIC_TOLERANCE {
+                return Ok(run.q);
+            }
+            if closest.as_ref().is_none_or(|c| run.residual < c.residual) {
+                closest = Some(run);
+            }
+        }
+        // Diagnosis: the same descent with the limits lifted.
+        for start in &seeds[..2] {
+            let free = self.descend(model, leg, target, start, false, s);
+            if free.residual < NUMERIC_TOLERANCE
+                && let Err(e) = check_limits(leg, &free.q)
+            {
+                return Err(format!("target {}: {e}", fmt3(target)));
+            }
+        }
+        let gap = closest.as_ref().map_or(f64::INFINITY, |c| c.residual);
+        if let Some(c) = closest.as_ref().filter(|c| c.residual < STALL_GAP) {
+            // Stalled next to the target: the leg is at (or next to) a singular posture
+            // where some direction of foot motion is lost.
+            for (&joint, &angle) in leg.joints.iter().zip(&c.q) {
+                s.q[7 + joint] = angle;
+            }
+            forward_kinematics(model, &mut s.ws, &s.q);
+            frame_jacobian(model, &s.ws, leg.frame, &mut s.jac, 0, false);
+            let j_leg = DMatrix::from_fn(3, n, |r, k| s.jac[(r, 6 + leg.joints[k])]);
+            return Err(format!(
+                "target {}: the leg stops {gap:.1e} m short of it at a singular posture: {}",
+                fmt3(target),
+                singular_reason(model, &leg.joints, &j_leg)
+            ));
+        }
+        Err(format!(
+            "target {} is out of reach by {gap:.4} m (the closest the leg gets within its joint limits)",
+            fmt3(target)
+        ))
+    }
+
+    /// One Levenberg–Marquardt descent on the square system [p* − p(q); −C (q − q_nom)] = 0
+    /// (the extra rows C of a redundant leg), each step projected onto the joint limits when
+    /// `limited` (a projected Levenberg–Marquardt step: Kanzow, Yamashita & Fukushima,
+    /// "Levenberg–Marquardt methods with strong local convergence properties for solving
+    /// nonlinear equations with convex constraints", J. Comput. Appl. Math. 172(2), 2004).
+    fn descend(
+        &self,
+        model: &Model,
+        leg: &Leg,
+        target: &Vec3,
+        start: &[f64],
+        limited: bool,
+        s: &mut IkScratch,
+    ) -> Descent {
+        let n = leg.n();
+        let m = leg.extra.nrows();
+        let cols: Vec<usize> = leg.joints.iter().map(|k| 6 + k).collect();
+        let project = |q: &mut [f64]| {
+            if limited {
+                for ((x, lo), hi) in q.iter_mut().zip(&leg.lower).zip(&leg.upper) {
+                    *x = x.clamp(*lo, *hi);
+                }
+            }
+        };
+        let residual = |q: &[f64], s: &mut IkScratch, r: &mut DVector<f64>| {
             for (&joint, &angle) in leg.joints.iter().zip(q) {
                 s.q[7 + joint] = angle;
             }
             forward_kinematics(model, &mut s.ws, &s.q);
-            target - frame_pose(model, &s.ws, leg.frame).trans
+            let e = target - frame_pose(model, &s.ws, leg.frame).trans;
+            for k in 0..3 {
+                r[k] = e[k];
+            }
+            for row in 0..m {
+                r[3 + row] = -(0..n)
+                    .map(|c| leg.extra[(row, c)] * (q[c] - leg.nominal[c]))
+                    .sum::<f64>();
+            }
+            r.norm()
         };
-        let mut e = residual(&q, s);
-        // Levenberg–Marquardt: solve (JᵀJ + μ I) Δ = Jᵀ e; shrink μ after a step that lowers
+        let mut q = start.to_vec();
+        project(&mut q);
+        let mut r = DVector::zeros(3 + m);
+        let mut r_trial = DVector::zeros(3 + m);
+        let mut norm = residual(&q, s, &mut r);
+        let mut a = DMatrix::zeros(3 + m, n);
+        let mut trial = vec![0.0; n];
+        let mut iterations = 0;
+        // Levenberg–Marquardt: solve (AᵀA + μ I) Δ = Aᵀ r; shrink μ after a step that lowers
         // the residual (towards Gauss–Newton, quadratic convergence), grow it after one that
         // does not (towards a short gradient step).
         let mut mu = 1e-6;
-        for _ in 0..200 {
+        for _ in 0..100 {
+            iterations += 1;
             frame_jacobian(model, &s.ws, leg.frame, &mut s.jac, 0, false);
-            let j = Mat3::from_fn(|r, c| s.jac[(r, cols[c])]);
-            let jtj = j.transpose() * j;
-            let jte = j.transpose() * e;
-            if e.norm() < NUMERIC_TOLERANCE {
+            for r_ in 0..3 {
+                for c in 0..n {
+                    a[(r_, c)] = s.jac[(r_, cols[c])];
+                }
+            }
+            for row in 0..m {
+                for c in 0..n {
+                    a[(3 + row, c)] = leg.extra[(row, c)];
+                }
+            }
+            let ata = a.transpose() * &a;
+            let atr = a.transpose() * &r;
+            if norm < NUMERIC_TOLERANCE {
                 // Converged: one undamped Gauss–Newton step takes the residual from the
                 // tolerance to rounding level, so that the angles are as smooth in time as the
                 // closed form's (finite differences of them stay clean).
-                if let Some(delta) = jtj.lu().solve(&jte) {
-                    let trial = [q[0] + delta[0], q[1] + delta[1], q[2] + delta[2]];
-                    if residual(&trial, s).norm() < e.norm() {
-                        q = trial;
+                if let Some(delta) = ata.clone().lu().solve(&atr) {
+                    for ((t, x), d) in trial.iter_mut().zip(&q).zip(delta.iter()) {
+                        *t = x + d;
+                    }
+                    project(&mut trial);
+                    let t_norm = residual(&trial, s, &mut r_trial);
+                    if t_norm < norm {
+                        q.copy_from_slice(&trial);
                     }
                 }
-                return Ok(q);
+                break;
             }
             let mut accepted = false;
             while mu < 1e12 {
-                let Some(delta) = (jtj + Mat3::identity() * mu).lu().solve(&jte) else {
+                let damped = &ata + DMatrix::identity(n, n) * mu;
+                let Some(delta) = damped.lu().solve(&atr) else {
                     mu *= 10.0;
                     continue;
                 };
-                let trial = [q[0] + delta[0], q[1] + delta[1], q[2] + delta[2]];
-                let e_trial = residual(&trial, s);
-                if e_trial.norm() < e.norm() {
-                    q = trial;
-                    e = e_trial;
+                for ((t, x), d) in trial.iter_mut().zip(&q).zip(delta.iter()) {
+                    *t = x + d;
+                }
+                project(&mut trial);
+                let t_norm = residual(&trial, s, &mut r_trial);
+                if t_norm < norm {
+                    q.copy_from_slice(&trial);
+                    std::mem::swap(&mut r, &mut r_trial);
+                    norm = t_norm;
                     mu = (mu * 0.1).max(1e-15);
                     accepted = true;
                     break;
@@ -558,17 +778,112 @@ impl Legs {
             if !accepted {
                 break;
             }
+            // The workspace now holds the accepted point (its residual was the last one
+            // computed), so the Jacobian of the next round is taken there.
         }
-        // Leave the workspace at the last accepted point for callers that read it.
-        let e = residual(&q, s);
-        if e.norm() < NUMERIC_TOLERANCE {
-            return Ok(q);
+        // Leave the workspace at the returned point for callers that read it.
+        let norm = residual(&q, s, &mut r);
+        Descent {
+            q,
+            residual: norm,
+            iterations,
         }
-        Err(format!(
-            "target {} is out of reach: the closest the leg gets is {:.3e} m away",
-            fmt3(target),
-            e.norm()
-        ))
+    }
+}
+
+/// Rows spanning the null space of a 3 × n Jacobian of rank 3 (None when the rank is lower):
+/// the right singular vectors of its n − 3 smallest singular values, each signed so that its
+/// largest entry is positive (deterministic).
+fn null_space_rows(j: &DMatrix<f64>) -> Option<DMatrix<f64>> {
+    let n = j.ncols();
+    // Jᵀ J is n × n symmetric; its eigenvectors for the n − 3 zero eigenvalues span the null
+    // space. The symmetric eigen-decomposition is deterministic for a given matrix.
+    let jtj = j.transpose() * j;
+    let eig = jtj.symmetric_eigen();
+    let mut order: Vec<usize> = (0..n).collect();
+    order.sort_by(|&a, &b| eig.eigenvalues[a].total_cmp(&eig.eigenvalues[b]));
+    let scale = eig.eigenvalues.amax().max(1e-300);
+    // The three kept directions must be well away from zero.
+    if eig.eigenvalues[order[n - 3]] < 1e-8 * scale {
+        return None;
+    }
+    let mut rows = DMatrix::zeros(n - 3, n);
+    for (r, &k) in order.iter().take(n - 3).enumerate() {
+        let v = eig.eigenvectors.column(k);
+        let big = v
+            .iter()
+            .fold(0.0f64, |m, &x| if x.abs() > m.abs() { x } else { m });
+        let sign = if big < 0.0 { -1.0 } else { 1.0 };
+        for c in 0..n {
+            rows[(r, c)] = sign * v[c];
+        }
+    }
+    Some(rows)
+}
+
+/// Why a leg's 3 × n foot Jacobian is (nearly) singular, in the robot's terms: a joint whose
+/// axis passes (nearly) through the foot cannot move it; otherwise the leg is stretched
+/// straight or folded flat and the foot cannot move along the direction named.
+pub fn singular_reason(model: &Model, joints: &[usize], j_leg: &DMatrix<f64>) -> String {
+    let n = joints.len();
+    // A revolute joint's column is a × r: its norm is the foot's distance from the axis.
+    let norms: Vec<f64> = (0..n).map(|c| j_leg.column(c).norm()).collect();
+    let longest = norms.iter().fold(0.0f64, |m, &x| m.max(x));
+    if let Some(k) = (0..n)
+        .find(|&k| model.joints[joints[k]].kind == JointKind::Revolute && norms[k] < 0.1 * longest)
+    {
+        return format!(
+            "the foot is {:.4} m from the axis of joint '{}', so turning that joint barely moves it (a foot under a hip yaw axis, say); a posture that keeps the foot off that axis avoids it",
+            norms[k], model.joints[joints[k]].name
+        );
+    }
+    let svd = (j_leg * j_leg.transpose()).symmetric_eigen();
+    let mut k = 0;
+    for c in 1..3 {
+        if svd.eigenvalues[c] < svd.eigenvalues[k] {
+            k = c;
+        }
+    }
+    let d = svd.eigenvectors.column(k);
+    format!(
+        "the leg is stretched straight or folded flat: its joints cannot move the foot along ({:.2}, {:.2}, {:.2}) in the base frame (smallest singular value {:.1e} m/rad)",
+        d[0],
+        d[1],
+        d[2],
+        svd.eigenvalues[k].max(0.0).sqrt()
+    )
+}
+
+/// How far the angles lie outside the leg's limits, summed, rad.
+fn limit_excess(leg: &Leg, q: &[f64]) -> f64 {
+    (0..leg.n())
+        .map(|k| (leg.lower[k] - q[k]).max(0.0) + (q[k] - leg.upper[k]).max(0.0))
+        .sum()
+}
+
+/// The joint furthest outside its limits, named with the angle it would need and the excess.
+fn check_limits(leg: &Leg, q: &[f64]) -> Result<(), String> {
+    let mut worst: Option<(usize, f64)> = None;
+    for (k, &angle) in q.iter().enumerate() {
+        let excess = (leg.lower[k] - angle).max(angle - leg.upper[k]);
+        if excess > LIMIT_SLACK && worst.is_none_or(|(_, x)| excess > x) {
+            worst = Some((k, excess));
+        }
+    }
+    match worst {
+        None => Ok(()),
+        Some((k, excess)) => {
+            let angle = q[k];
+            let side = if angle < leg.lower[k] {
+                "below its lower limit"
+            } else {
+                "above its upper limit"
+            };
+            Err(format!(
+                "it needs joint '{}' = {angle:.4} rad, outside its limits [{}, {}] by {excess:.4} rad ({side})",
+                leg.names[k], leg.lower[k], leg.upper[k]
+            ))
+        }
     }
 }
 

@@ -227,8 +227,9 @@ pub struct PlanScratch {
     ws: Workspace,
     jac: DMatrix<f64>,
     ik: IkScratch,
-    /// Per leg: J_leg⁻¹ and p̈ − J_base v̇_base, between the velocity and acceleration passes.
-    legs: Vec<(Mat3, Vec3)>,
+    /// Per leg: the inverse of the square leg matrix [J_leg; C] (C the rows fixing a redundant
+    /// leg's extra joints) and p̈ − J_base v̇_base, between the velocity and acceleration passes.
+    legs: Vec<(DMatrix<f64>, Vec3)>,
 }
 
 /// A plan: analytic base and feet, joints at knots.
@@ -267,6 +268,9 @@ pub struct Plan {
     first_cycle: f64,
     /// Crawl only: the centre-of-mass margin used (given, or derived from the robot), m.
     crawl_margin: f64,
+    /// The gait planned, and the robot's nominal stance height (for the hints of errors).
+    gait: Gait,
+    stance_height: f64,
 }
 
 impl Plan {
@@ -434,7 +438,14 @@ impl Plan {
             gravity_local,
             foot_radius: radius,
             first_cycle: 0.0,
-            crawl_margin: 0.0,
+            crawl_margin: match *gait {
+                Gait::Crawl {
+                    margin: Some(m), ..
+                } => m,
+                _ => 0.0,
+            },
+            gait: gait.clone(),
+            stance_height: nominal_height,
         };
 
         // The starting posture fixes where the centre of mass sits relative to the base.
@@ -670,20 +681,88 @@ impl Plan {
     ) -> Result<(), PlanError> {
         let h = t1 - t0;
         for i in 0..self.legs.len() {
-            for &k in &self.legs.leg(i).joints() {
+            for &k in self.legs.leg(i).joints() {
                 let predicted = q0[k] + 0.5 * h * (v0[k] + out.v[6 + k]);
                 if (out.q[7 + k] - predicted).abs() > 1e-3 {
                     return Err(PlanError(format!(
-                        "foot '{}' between t = {t0:.4} s and {t1:.4} s: joint '{}' jumps from {:.4} to {:.4} rad (the leg's inverse kinematics changes branch); allowed: targets that keep the leg on one side of its stretched or folded posture",
+                        "foot '{}' between t = {t0:.4} s and {t1:.4} s: joint '{}' jumps from {:.4} to {:.4} rad (the leg's inverse kinematics changes branch: the leg passes a stretched or folded posture, or a joint limit turns it to another solution); {}",
                         self.legs.leg(i).foot(),
                         self.model.joints[k].name,
                         q0[k],
-                        out.q[7 + k]
+                        out.q[7 + k],
+                        self.hint(out.stance[i])
                     )));
                 }
             }
         }
         Ok(())
+    }
+
+    /// Which gait settings would help a leg that cannot follow the plan, in the scenario's
+    /// field names, with their values now.
+    fn hint(&self, stance: bool) -> String {
+        let h = self.stance_height;
+        let body = |b: f64| {
+            if (b - h).abs() > 1e-3 {
+                format!(
+                    "a `gait.body_height` nearer the robot's nominal stance height {h:.3} m (now {b:.4} m)"
+                )
+            } else {
+                format!(
+                    "a `gait.body_height` a little below the robot's nominal stance height {h:.3} m (more reach)"
+                )
+            }
+        };
+        match self.gait {
+            Gait::Stand => format!(
+                "the robot is the cause, not the gait: its nominal posture (`[nominal]` in the robot facts) puts the base {h:.3} m above the ground"
+            ),
+            Gait::WeightShift {
+                amplitude,
+                body_height,
+                ..
+            } => format!(
+                "gait settings that would help: a smaller `gait.amplitude` (now {amplitude:.4} m), or {}",
+                body(body_height)
+            ),
+            Gait::Crawl {
+                step_length,
+                swing_height,
+                body_height,
+                ..
+            } => {
+                if stance {
+                    format!(
+                        "gait settings that would help: a smaller `gait.margin` (the sideways weight shift; now {:.4} m), a shorter `gait.step_length` (now {step_length:.4} m), or {}",
+                        self.crawl_margin,
+                        body(body_height)
+                    )
+                } else {
+                    format!(
+                        "gait settings that would help: a lower `gait.swing_height` (now {swing_height:.4} m), a shorter `gait.step_length` (now {step_length:.4} m), or {}",
+                        body(body_height)
+                    )
+                }
+            }
+            Gait::Trot {
+                step_length,
+                swing_height,
+                body_height,
+                ..
+            } => {
+                if stance {
+                    format!(
+                        "gait settings that would help: a shorter `gait.step_length` (now {step_length:.4} m), or {}",
+                        body(body_height)
+                    )
+                } else {
+                    format!(
+                        "gait settings that would help: a lower `gait.swing_height` (now {swing_height:.4} m), a shorter `gait.step_length` (now {step_length:.4} m), or {}",
+                        body(body_height)
+                    )
+                }
+            }
+        }
     }
 
     fn seed_nominal(&self, out: &mut PlanSample) {
@@ -721,7 +800,12 @@ impl Plan {
             ws: Workspace::new(&self.model),
             jac: DMatrix::zeros(3, self.model.nv()),
             ik: self.legs.new_scratch(&self.model),
-            legs: vec![(Mat3::zeros(), Vec3::zeros()); self.legs.len()],
+            legs: (0..self.legs.len())
+                .map(|i| {
+                    let n = self.legs.leg(i).n();
+                    (DMatrix::zeros(n, n), Vec3::zeros())
+                })
+                .collect(),
         }
     }
 
@@ -835,10 +919,16 @@ impl Plan {
         self.base_and_feet(t, out);
         let rt = self.ground.rot.transpose();
         let model = &self.model;
-        let at = |i: usize, e: String| {
+        let at = |i: usize, e: String, out: &PlanSample| {
             PlanError(format!(
-                "foot '{}' at t = {t:.4} s: {e}",
-                self.legs.leg(i).foot()
+                "foot '{}' at t = {t:.4} s ({}): {e}; {}",
+                self.legs.leg(i).foot(),
+                if out.stance[i] {
+                    "in stance"
+                } else {
+                    "swinging"
+                },
+                self.hint(out.stance[i])
             ))
         };
         for &k in &self.free_joints {
@@ -850,21 +940,23 @@ impl Plan {
             let leg = self.legs.leg(i);
             let joints = leg.joints();
             let target = rt * (out.foot_pos[i] - out.base_pos);
-            let seed = joints.map(|k| out.q[7 + k]);
+            let seed: Vec<f64> = joints.iter().map(|&k| out.q[7 + k]).collect();
             let q = self
                 .legs
                 .solve(model, i, &target, &seed, &mut scratch.ik)
-                .map_err(|e| at(i, e))?;
-            for k in 0..3 {
-                out.q[7 + joints[k]] = q[k];
+                .map_err(|e| at(i, e, out))?;
+            for (k, &joint) in joints.iter().enumerate() {
+                out.q[7 + joint] = q[k];
             }
         }
         let ws = &mut scratch.ws;
         forward_kinematics(model, ws, &out.q);
-        // Rates: J_leg q̇_leg = ṗ − J_base v_base (the other legs' columns are zero in this
-        // foot's rows).
+        // Rates: [J_leg; C] q̇_leg = [ṗ − J_base v_base; 0] (the other legs' columns are zero in
+        // this foot's rows; C, a redundant leg's extra rows, is constant, so C q̇ = 0 and
+        // C q̈ = 0).
         for i in 0..self.legs.len() {
             let leg = self.legs.leg(i);
+            let n = leg.n();
             let found = frame_pose(model, ws, leg.frame()).trans;
             if (found - out.foot_pos[i]).norm() > FOOT_CHECK {
                 return Err(at(
@@ -873,11 +965,19 @@ impl Plan {
                         "the leg's joint solution misses the planned foot by {:.2e} m",
                         (found - out.foot_pos[i]).norm()
                     ),
+                    out,
                 ));
             }
             frame_jacobian(model, ws, leg.frame(), &mut scratch.jac, 0, false);
-            let cols = leg.joints().map(|k| 6 + k);
-            let j_leg = Mat3::from_fn(|r, c| scratch.jac[(r, cols[c])]);
+            let cols: Vec<usize> = leg.joints().iter().map(|k| 6 + k).collect();
+            let extra = leg.extra_rows();
+            let square = DMatrix::from_fn(n, n, |r, c| {
+                if r < 3 {
+                    scratch.jac[(r, cols[c])]
+                } else {
+                    extra[(r - 3, c)]
+                }
+            });
             let mut base_v = Vec3::zeros();
             let mut base_a = Vec3::zeros();
             for r in 0..3 {
@@ -886,24 +986,46 @@ impl Plan {
                     base_a[r] += scratch.jac[(r, c)] * out.a[c];
                 }
             }
-            // Conditioning by Hadamard's ratio |det J| / Π |columns| (1 for orthogonal
+            // Conditioning by Hadamard's ratio |det A| / Π |columns| (1 for orthogonal
             // columns, 0 when singular): cheaper than singular values on every knot.
-            let columns: f64 = (0..3).map(|c| j_leg.column(c).norm()).product();
-            let det = j_leg.determinant();
-            let inverse = match j_leg.try_inverse() {
-                Some(inv) if det.abs() > SINGULAR_RATIO * columns => inv,
+            let columns: f64 = (0..n).map(|c| square.column(c).norm()).product();
+            let det = square.determinant();
+            // The ratio is blind to a column that shrinks to nothing (a joint whose axis
+            // passes through the foot, e.g. a foot under a hip yaw axis), so such a column
+            // counts as singular on its own.
+            let longest = (0..n)
+                .map(|c| square.column(c).norm())
+                .fold(0.0f64, f64::max);
+            let lost = (0..n).any(|c| square.column(c).norm() < SINGULAR_RATIO * longest);
+            let inverse = match square.clone().try_inverse() {
+                Some(inv) if det.abs() > SINGULAR_RATIO * columns && !lost => inv,
                 _ => {
+                    let j_leg = DMatrix::from_fn(3, n, |r, c| scratch.jac[(r, cols[c])]);
                     return Err(at(
                         i,
                         format!(
-                            "the leg is singular (|det J| / Π|columns of J| = {:.1e}); allowed: targets away from a stretched or folded leg",
-                            det.abs() / columns
+                            "the leg is singular{}: {}",
+                            if lost {
+                                String::new()
+                            } else {
+                                format!(
+                                    " (|det J| / Π|columns of J| = {:.1e})",
+                                    det.abs() / columns
+                                )
+                            },
+                            legs::singular_reason(model, leg.joints(), &j_leg)
                         ),
+                        out,
                     ));
                 }
             };
-            let qd = inverse * (out.foot_vel[i] - base_v);
-            for k in 0..3 {
+            let mut rhs = DVector::zeros(n);
+            let dv = out.foot_vel[i] - base_v;
+            for r in 0..3 {
+                rhs[r] = dv[r];
+            }
+            let qd = &inverse * rhs;
+            for k in 0..n {
                 out.v[cols[k]] = qd[k];
             }
             scratch.legs[i] = (inverse, out.foot_acc[i] - base_a);
@@ -912,10 +1034,16 @@ impl Plan {
         velocities_and_bias(model, ws, &out.v);
         for i in 0..self.legs.len() {
             let leg = self.legs.leg(i);
+            let n = leg.n();
             let bias = frame_bias_acceleration(model, ws, leg.frame());
-            let (inverse, partial) = scratch.legs[i];
-            let qdd = inverse * (partial - bias);
-            for k in 0..3 {
+            let (inverse, partial) = &scratch.legs[i];
+            let mut rhs = DVector::zeros(n);
+            let da = partial - bias;
+            for r in 0..3 {
+                rhs[r] = da[r];
+            }
+            let qdd = inverse * rhs;
+            for k in 0..n {
                 out.a[6 + leg.joints()[k]] = qdd[k];
             }
         }

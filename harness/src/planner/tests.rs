@@ -66,7 +66,7 @@ fn closed_form_reads_any_joint_frames_from_the_model() {
     assert!(leg.has_closed_form());
     assert_eq!(leg.method(), IkMethod::Analytic);
     let mut scratch = legs.new_scratch(&model);
-    let home = legs.model_foot_position(&model, 0, &leg.nominal(), &mut scratch);
+    let home = legs.model_foot_position(&model, 0, leg.nominal(), &mut scratch);
     let (mut solved, mut agree) = (0, 0);
     for k in 0..343 {
         let d = Vec3::new(
@@ -80,7 +80,7 @@ fn closed_form_reads_any_joint_frames_from_the_model() {
             0,
             &target,
             IkMethod::Analytic,
-            &leg.nominal(),
+            leg.nominal(),
             &mut scratch,
         );
         let numeric = legs.solve_with(
@@ -88,7 +88,7 @@ fn closed_form_reads_any_joint_frames_from_the_model() {
             0,
             &target,
             IkMethod::Numeric,
-            &leg.nominal(),
+            leg.nominal(),
             &mut scratch,
         );
         if let Err(e) = &closed {
@@ -115,9 +115,8 @@ fn closed_form_reads_any_joint_frames_from_the_model() {
             // The numeric method may land on another branch from the nominal seed; the closed
             // form's is the one nearest the nominal posture.
             if let Ok(qn) = numeric {
-                let dist = |q: &[f64; 3]| -> f64 {
-                    (0..3).map(|i| (q[i] - leg.nominal()[i]).powi(2)).sum()
-                };
+                let dist =
+                    |q: &[f64]| -> f64 { (0..3).map(|i| (q[i] - leg.nominal()[i]).powi(2)).sum() };
                 let same = (0..3).all(|i| (q[i] - qn[i]).abs() < 1e-8);
                 assert!(same || dist(&q) <= dist(&qn) + 1e-12, "{q:?} vs {qn:?}");
                 agree += usize::from(same);
@@ -141,7 +140,7 @@ fn closed_form_picks_the_branch_nearest_the_nominal_posture() {
         // The same foot position with the knee folded the other way is the other branch.
         let mirrored = [leg.nominal()[0], -leg.nominal()[1], -leg.nominal()[2]];
         let target = legs.model_foot_position(&r.model, i, &mirrored, &mut scratch);
-        let nominal_target = legs.model_foot_position(&r.model, i, &leg.nominal(), &mut scratch);
+        let nominal_target = legs.model_foot_position(&r.model, i, leg.nominal(), &mut scratch);
         assert!((target - nominal_target).norm() < 1e-12);
         let q = legs
             .solve_with(
