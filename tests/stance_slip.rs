@@ -65,7 +65,7 @@ fn stand_robot(
     let plan = Plan::build(model, &robot.facts, &slope, &Gait::Stand, duration).unwrap();
     let settings = PlantSettings::default();
     let dt = settings.dt;
-    let mut plant = Plant::new(&robot, Box::new(slope), mu, settings);
+    let mut plant = Plant::new(robot, Box::new(slope), mu, settings);
     let (mut q, mut v) = plan.initial_state();
     plant.set_state(&q, &v);
     let feet = robot.foot_frames();
