@@ -32,6 +32,8 @@ struct Measured {
     from_kinematics: Vec<Vec3>,
     off_ground_share: f64,
     slip_max_mm: f64,
+    /// Largest joint speed the plant reports after the last step, rad/s.
+    end_joint_speed: f64,
 }
 
 /// Hold the standing plan with the stiff joint PD on `slope_deg` at friction `mu` for
@@ -39,24 +41,36 @@ struct Measured {
 /// the target of foot 0's leg, ramped in over the first half — a planned-stance foot that is
 /// lifted and dragged.
 fn stand(slope_deg: f64, mu: f64, duration: f64, lift: Option<&[(&str, f64)]>) -> Measured {
-    let robot = LoadedRobot::demo().unwrap();
+    stand_robot(
+        &LoadedRobot::demo().unwrap(),
+        &LawSettings::default(),
+        slope_deg,
+        mu,
+        duration,
+        lift,
+    )
+}
+
+/// [`stand`] for any robot, with the stiff PD's gains from `law`.
+fn stand_robot(
+    robot: &LoadedRobot,
+    law: &LawSettings,
+    slope_deg: f64,
+    mu: f64,
+    duration: f64,
+    lift: Option<&[(&str, f64)]>,
+) -> Measured {
     let model = &robot.model;
     let slope = Slope::degrees(slope_deg);
     let plan = Plan::build(model, &robot.facts, &slope, &Gait::Stand, duration).unwrap();
     let settings = PlantSettings::default();
     let dt = settings.dt;
-    let mut plant = Plant::new(&robot, Box::new(slope), mu, settings);
+    let mut plant = Plant::new(robot, Box::new(slope), mu, settings);
     let (mut q, mut v) = plan.initial_state();
     plant.set_state(&q, &v);
     let feet = robot.foot_frames();
     let nf = feet.len();
-    let mut law = build_law(
-        "stiff-pd",
-        model.clone(),
-        feet.clone(),
-        &LawSettings::default(),
-    )
-    .unwrap();
+    let mut law = build_law("stiff-pd", model.clone(), feet.clone(), law).unwrap();
     let n = slope.normal_at(0.0, 0.0).normalize();
     let r = robot.facts.feet.radius;
     let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
@@ -139,6 +153,7 @@ fn stand(slope_deg: f64, mu: f64, duration: f64, lift: Option<&[(&str, f64)]>) -
         from_kinematics: kin,
         off_ground_share: m.stance_off_ground_share,
         slip_max_mm: m.slip_max_mm,
+        end_joint_speed: v.as_slice()[6..].iter().fold(0.0, |a, x| a.max(x.abs())),
     }
 }
 
@@ -180,6 +195,34 @@ fn slip_read_out_matches_the_feet_kinematics_in_slow_creep_and_fast_sliding() {
     );
     // Standing on the slope the feet touch throughout.
     assert!(creep.off_ground_share < 0.01, "{}", creep.off_ground_share);
+}
+
+#[test]
+fn slip_read_out_and_joint_velocities_of_a_still_robot_with_far_out_feet_are_still() {
+    // The yaw-first quadruped yarrow, its feet far out from the hips, held by the stiff joint
+    // PD (the tuner's gains for it at 1 kHz, kp 8409 N·m/rad, kd 19.45 N·m·s/rad). Its feet
+    // stay where they are, so the read-out must show them still and the plant's joint
+    // velocities (what every law observes) must vanish. Both failed once: the read-out took the
+    // links' rigid-body velocities, which rapier leaves at the start of the last substep (63
+    // mm/s of apparent slip per foot), and the engine's single unbiased sweep left the feet
+    // with 15–20 mm/s of tangential velocity that never moved them (0.05 rad/s on the lift
+    // joints), which the PD's damping answered with 27 N of inward squeeze per foot.
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let robot = LoadedRobot::from_facts_file(&root.join("scenarios/robots/yarrow.toml")).unwrap();
+    let law = LawSettings {
+        stiff_kp: 8408.964152537146,
+        stiff_kd: 19.452593319765146,
+        ..LawSettings::default()
+    };
+    let m = stand_robot(&robot, &law, 0.0, 1.0, 1.5, None);
+    assert_agree("far-out feet", &m);
+    assert!(m.slip_max_mm < 1.0, "slip {} mm", m.slip_max_mm);
+    eprintln!("joint speed at the end: {:.2e} rad/s", m.end_joint_speed);
+    assert!(
+        m.end_joint_speed < 1e-3,
+        "a still robot reports joints moving at {} rad/s",
+        m.end_joint_speed
+    );
 }
 
 #[test]

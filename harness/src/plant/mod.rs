@@ -599,9 +599,13 @@ impl Plant {
         let dt = self.settings.dt;
         let np = &self.world.narrow_phase;
         let ground = &self.ground;
+        let mb = mb_ref(&self.world.multibody_joints, self.mb_handle);
+        let gv = mb.generalized_velocity();
         for (i, foot) in self.feet.iter().enumerate() {
             let rb = &self.world.bodies[self.bodies[foot.body]];
-            let pose = from_pose(rb.position());
+            let link_id = self.link_ids[foot.body];
+            let link = mb.link(link_id).expect("every body is a link");
+            let pose = from_pose(link.local_to_world());
             let centre = pose.act_point(&foot.centre_local);
             let (n, t1, t2) = self.terrain.surface_frame(centre.x, centre.y);
             let contact_point = centre - n * foot.radius;
@@ -630,7 +634,19 @@ impl Plant {
                 }
             }
             let force = impulse / dt;
-            let vel = from_v(rb.velocity_at_point(to_v(&contact_point)));
+            // The material point's velocity from the engine's final generalized velocity: the
+            // link body's Jacobian (from the forward kinematics at the step's final pose) gives
+            // [velocity of the link's centre of mass; angular velocity], world axes. Not the
+            // rigid body's own velocity: rapier 0.36 writes a multibody link's velocity to its
+            // rigid body only at the start of each substep (`Multibody::update_velocities`),
+            // never after the last one, so it is the velocity the last substep began with,
+            // position-correction bias included. That stale value showed 63 mm/s of slip on
+            // feet that did not move under a large tangential force (tests/stance_slip.rs).
+            let twist = mb.body_jacobian(link_id) * gv;
+            let com = pose.act_point(&from_v(rb.local_center_of_mass()));
+            let lin = Vec3::new(twist[0], twist[1], twist[2]);
+            let ang = Vec3::new(twist[3], twist[4], twist[5]);
+            let vel = lin + ang.cross(&(contact_point - com));
             let slip = vel - n * n.dot(&vel);
             self.readings[i] = FootReading {
                 in_contact: touching,
@@ -692,6 +708,18 @@ pub fn configured_world(settings: &PlantSettings) -> PhysicsWorld {
     // it matters: a 4-point box slid with μ_eff = 0.936 μ under `Coulomb` and exactly μ under
     // `Simplified` (tests/plant_physics.rs).
     ip.friction_model = FrictionModel::Simplified;
+    // Two unbiased (relaxation) sweeps per substep instead of rapier's one. rapier 0.36 solves
+    // friction only in the unbiased sweep that follows each substep's position update, and the
+    // velocity that sweep leaves is the step's final velocity: the state every law observes and
+    // the slip read-out. One Gauss–Seidel sweep does not converge the coupled foot contacts of
+    // a robot whose feet sit far out from the hips (the yaw-first quadruped yarrow): its stance
+    // feet kept a steady 15–20 mm/s of tangential velocity while their positions did not change
+    // at all, the laws' damping answered that velocity, and the robot held by the stiff joint
+    // PD built up 27 N of inward squeeze per foot (measured: tests/stance_slip.rs). A second
+    // sweep converges it (a third and fourth changed the crawl's slip by < 0.01 mm); solving
+    // friction in the biased sweep too (`friction_in_bias_pass`) removed it standing but left
+    // 11 mm per stance phase of it in the crawl.
+    ip.num_internal_stabilization_iterations = 2;
     ip.contact_softness = SpringCoefficients::new(settings.contact_hz, settings.contact_damping);
     ip.static_contact_softness =
         SpringCoefficients::new(settings.contact_hz, settings.contact_damping);
