@@ -4,14 +4,14 @@
 
 use crate::matrix::Cell;
 use crate::metrics::{
-    CellMetrics, CellStatus, INFEASIBLE_SHARE, MetricsAccumulator, law_share_text,
-    no_control_reason,
+    CellMetrics, INFEASIBLE_SHARE, MetricsAccumulator, law_share_text, no_control_reason,
 };
 use crate::planner::{Plan, PlanSample};
 use crate::plant::actuator::Actuator;
 use crate::plant::terrain::{Slope, Terrain};
 use crate::plant::{Plant, PlantSettings};
 use crate::robot::LoadedRobot;
+use crate::run_format::Outcome as CellStatus;
 use crate::scenario::{NoiseFile, Scenario};
 use gripsweep_controllers::Model;
 use gripsweep_controllers::algorithms::base_pose;
@@ -198,7 +198,7 @@ fn simulate(
     let s = ctx.scenario;
     let robot = ctx.robot;
     let model = &robot.model;
-    let slope = Slope::degrees(cell.slope_deg);
+    let slope = Slope::degrees(cell.slope_deg());
     let built;
     let plan = match shared {
         Some(p) => p,
@@ -212,7 +212,7 @@ fn simulate(
     };
     let settings: PlantSettings = s.plant;
     let dt = settings.dt;
-    let mut plant = Plant::new(robot, Box::new(slope), cell.mu, settings);
+    let mut plant = Plant::new(robot, Box::new(slope), cell.mu(), settings);
     let feet = robot.foot_frames();
     let nj = model.n_joints();
 
@@ -221,7 +221,7 @@ fn simulate(
         .joints
         .iter()
         .map(|j| {
-            cell.actuator
+            cell.actuator()
                 .build(&robot.facts.actuator(&j.name), j.effort_limit, dt)
         })
         .collect();
@@ -238,26 +238,26 @@ fn simulate(
     }
     plant.set_state(&q, &v);
 
-    let law_model = controller_model(model, cell.mass_scale, cell.com_shift_mm);
-    let base_law = s.law_settings_for(&cell.controller, cell.rate_hz, cell.actuator);
+    let law_model = controller_model(model, cell.mass_scale(), cell.com_shift_mm());
+    let base_law = s.law_settings_for(cell.controller(), cell.rate_hz(), cell.actuator());
     let settings_law = LawSettings {
         foot_radius: robot.facts.feet.radius,
-        ..law_settings(&base_law, &slope, cell.mu, s.mu_estimate_scale)
+        ..law_settings(&base_law, &slope, cell.mu(), s.mu_estimate_scale)
     };
     let mut law: Box<dyn ControlLaw> =
-        match build_law(&cell.controller, law_model, feet.clone(), &settings_law) {
+        match build_law(cell.controller(), law_model, feet.clone(), &settings_law) {
             Ok(l) => l,
             Err(e) => return error_outcome(e),
         };
 
     let steps = (s.duration / dt).round() as usize;
-    let every = (1.0 / (cell.rate_hz * dt)).round().max(1.0) as usize;
+    let every = (1.0 / (cell.rate_hz() * dt)).round().max(1.0) as usize;
     let delay_steps = (s.noise.delay / dt).round() as usize;
     let uphill = slope.uphill();
     let start = Vec3::new(q[0], q[1], q[2]);
     let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
     let mut acc =
-        MetricsAccumulator::new(feet.len(), dt, cell.mu, start).with_torque_limits(&limits);
+        MetricsAccumulator::new(feet.len(), dt, cell.mu(), start).with_torque_limits(&limits);
     let mut sample: PlanSample = plan.new_sample();
     let mut reached: PlanSample = plan.new_sample();
     let mut command = vec![0.0; nj];
@@ -295,7 +295,7 @@ fn simulate(
                 &mut q_obs,
                 &mut v_obs,
                 &s.noise,
-                cell.sensor_noise,
+                cell.sensor_noise(),
                 &mut rng,
             );
             let t0 = Instant::now();

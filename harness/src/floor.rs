@@ -44,26 +44,17 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
     let mut standing = s.clone();
     standing.law_tables.clear();
     standing.tuned.clear();
-    standing.axes.rate_hz = vec![plant_rate];
-    standing.axes.actuator = vec![ActuatorKind::Ideal];
-    standing.axes.controller = vec!["stiff-pd".into()];
+    standing.axes = standing
+        .axes
+        .with("rate_hz", vec![plant_rate.into()])
+        .with("actuator", vec![ActuatorKind::Ideal.name().into()])
+        .with("controller", vec!["stiff-pd".into()]);
     let Ok(table) = crate::tuning::tune(&standing, robot, Some(1)) else {
         return f64::NAN;
     };
     table.apply(&mut standing);
     standing.gait = Gait::Stand;
-    let cell = Cell {
-        index: 0,
-        slope_deg: 0.0,
-        mu: 1.0,
-        rate_hz: plant_rate,
-        actuator: ActuatorKind::Ideal,
-        controller: "stiff-pd".into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-    };
+    let cell = Cell::probe(1.0, plant_rate, ActuatorKind::Ideal, "stiff-pd");
     run_cell(
         &CellContext {
             scenario: &standing,

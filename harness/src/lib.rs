@@ -14,6 +14,7 @@ pub mod plant;
 pub mod report;
 pub mod robot;
 pub mod run_folder;
+pub mod run_format;
 pub mod runner;
 pub mod scenario;
 pub mod tuning;

@@ -5,24 +5,8 @@ use crate::plant::FootReading;
 use gripsweep_controllers::laws::LawStatus;
 use gripsweep_controllers::spatial::{Mat3, Vec3, so3_log};
 
-/// How a cell ended.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub enum CellStatus {
-    Ok,
-    /// The law reported it could not satisfy its constraints on more than
-    /// [`INFEASIBLE_SHARE`] of its control steps (the robot stayed up).
-    Infeasible,
-    /// The robot stayed up to the end but the law did not control it: the torques sat at
-    /// their limits, the base drifted far from the plan, or a joint's torque oscillated (see
-    /// [`NoControlTests`]).
-    NoControl,
-    /// Trunk low, trunk or leg touching the ground, or tilted beyond the limit.
-    Fell,
-    /// Non-finite state or the engine quarantined a body.
-    Diverged,
-    /// The cell could not be set up (e.g. the plan does not fit the slope).
-    Error,
-}
+/// How a cell ended: the one outcome enum of the run format.
+pub use crate::run_format::Outcome as CellStatus;
 
 /// Share of control steps with a law reporting trouble above which a cell is "infeasible".
 pub const INFEASIBLE_SHARE: f64 = 0.05;
@@ -85,31 +69,6 @@ pub fn law_share_text(m: &CellMetrics) -> String {
         100.0 * m.law_underactuated_share,
         100.0 * m.law_failed_share
     )
-}
-
-impl CellStatus {
-    pub fn name(self) -> &'static str {
-        match self {
-            CellStatus::Ok => "ok",
-            CellStatus::Infeasible => "infeasible",
-            CellStatus::NoControl => "no-control",
-            CellStatus::Fell => "fell",
-            CellStatus::Diverged => "diverged",
-            CellStatus::Error => "error",
-        }
-    }
-    pub fn parse(s: &str) -> Option<CellStatus> {
-        [
-            CellStatus::Ok,
-            CellStatus::Infeasible,
-            CellStatus::NoControl,
-            CellStatus::Fell,
-            CellStatus::Diverged,
-            CellStatus::Error,
-        ]
-        .into_iter()
-        .find(|c| c.name() == s)
-    }
 }
 
 /// The numbers of one cell (the metric columns of `cells.csv`, in order).

@@ -136,9 +136,9 @@ pub struct Combo {
 /// The combinations a scenario's cells need, in matrix order (rate, actuator, law).
 pub fn combos(s: &Scenario) -> Vec<Combo> {
     let mut out = Vec::new();
-    for &rate_hz in &s.axes.rate_hz {
-        for &actuator in &s.axes.actuator {
-            for law in &s.axes.controller {
+    for rate_hz in s.axes.numbers("rate_hz") {
+        for actuator in s.axes.actuators() {
+            for law in s.axes.names("controller") {
                 out.push(Combo {
                     law: law.clone(),
                     rate_hz,
@@ -281,18 +281,7 @@ impl Tuner<'_> {
             gain_key(&combo.law, combo.rate_hz, combo.actuator),
             settings,
         );
-        let cell = Cell {
-            index: 0,
-            slope_deg: 0.0,
-            mu: 1.0,
-            rate_hz: combo.rate_hz,
-            actuator: combo.actuator,
-            controller: combo.law.clone(),
-            mass_scale: 1.0,
-            com_shift_mm: 0.0,
-            sensor_noise: 0.0,
-            seed: 0,
-        };
+        let cell = Cell::probe(1.0, combo.rate_hz, combo.actuator, &combo.law);
         let mut rows: Vec<TraceRow> = Vec::new();
         let out = run_cell_with_plan(
             &CellContext {
