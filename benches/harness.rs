@@ -54,18 +54,7 @@ struct Parts {
 }
 
 fn cell(controller: &str) -> Cell {
-    Cell {
-        index: 0,
-        slope_deg: 10.0,
-        mu: 0.8,
-        rate_hz: 1000.0,
-        actuator: ActuatorKind::Ideal,
-        controller: controller.into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-    }
+    Cell::probe(0.8, 1000.0, ActuatorKind::Ideal, controller).set("slope_deg", 10.0)
 }
 
 /// `cell.rs`'s `simulate` for a noise-free, delay-free cell, each part timed.
@@ -74,19 +63,19 @@ fn replay(s: &Scenario, robot: &gripsweep::robot::LoadedRobot, cell: &Cell) -> P
     let wall = Instant::now();
     let t0 = Instant::now();
     let model = &robot.model;
-    let slope = Slope::degrees(cell.slope_deg);
+    let slope = Slope::degrees(cell.slope_deg());
     let plan = Plan::build(model, &robot.facts, &slope, &s.gait, s.duration).expect("plan");
     p.plan_build = t0.elapsed().as_secs_f64();
     let t0 = Instant::now();
     let dt = s.plant.dt;
-    let mut plant = Plant::new(robot, Box::new(slope), cell.mu, s.plant);
+    let mut plant = Plant::new(robot, Box::new(slope), cell.mu(), s.plant);
     let feet = robot.foot_frames();
     let nj = model.n_joints();
     let mut actuators: Vec<Box<dyn Actuator>> = model
         .joints
         .iter()
         .map(|j| {
-            cell.actuator
+            cell.actuator()
                 .build(&robot.facts.actuator(&j.name), j.effort_limit, dt)
         })
         .collect();
@@ -94,20 +83,21 @@ fn replay(s: &Scenario, robot: &gripsweep::robot::LoadedRobot, cell: &Cell) -> P
     plant.set_joint_friction(&coulomb, &viscous);
     let (mut q, mut v) = plan.initial_state();
     plant.set_state(&q, &v);
-    let law_model = controller_model(model, cell.mass_scale, cell.com_shift_mm);
-    let base_law = s.law_settings_for(&cell.controller, cell.rate_hz, cell.actuator);
+    let law_model = controller_model(model, cell.mass_scale(), cell.com_shift_mm());
+    let base_law = s.law_settings_for(cell.controller(), cell.rate_hz(), cell.actuator());
     let settings_law = LawSettings {
         foot_radius: robot.facts.feet.radius,
-        ..law_settings(&base_law, &slope, cell.mu, s.mu_estimate_scale)
+        ..law_settings(&base_law, &slope, cell.mu(), s.mu_estimate_scale)
     };
-    let mut law = build_law(&cell.controller, law_model, feet.clone(), &settings_law).expect("law");
+    let mut law =
+        build_law(cell.controller(), law_model, feet.clone(), &settings_law).expect("law");
     let steps = (s.duration / dt).round() as usize;
-    let every = (1.0 / (cell.rate_hz * dt)).round().max(1.0) as usize;
+    let every = (1.0 / (cell.rate_hz() * dt)).round().max(1.0) as usize;
     let uphill = slope.uphill();
     let start = Vec3::new(q[0], q[1], q[2]);
     let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
     let mut acc =
-        MetricsAccumulator::new(feet.len(), dt, cell.mu, start).with_torque_limits(&limits);
+        MetricsAccumulator::new(feet.len(), dt, cell.mu(), start).with_torque_limits(&limits);
     let mut sample = plan.new_sample();
     let mut command = vec![0.0; nj];
     let mut applied = vec![0.0; nj];

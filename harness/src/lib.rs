@@ -20,3 +20,6 @@ pub mod scenario;
 pub mod tuning;
 
 pub use gripsweep_controllers as controllers;
+
+#[cfg(test)]
+mod axis_table_tests;

@@ -100,31 +100,9 @@ pub struct CellMetrics {
 }
 
 impl CellMetrics {
-    pub const COLUMNS: [&'static str; 23] = [
-        "sim_time_s",
-        "slip_mean_mm",
-        "slip_max_mm",
-        "slip_total_mm",
-        "stance_phases",
-        "base_pos_rms_mm",
-        "base_orient_rms_deg",
-        "joint_rms_deg",
-        "progress_m",
-        "progress_planned_m",
-        "torque_rms_nm",
-        "torque_peak_nm",
-        "torque_limit_share",
-        "energy_j",
-        "friction_use_max",
-        "friction_over_share",
-        "law_trouble_share",
-        "law_solved_share",
-        "law_infeasible_share",
-        "law_underactuated_share",
-        "law_failed_share",
-        "stance_off_ground_share",
-        "torque_flip_rate_hz",
-    ];
+    /// The metric columns, in file order: the run format's [`crate::run_format::METRICS`]
+    /// (`values` must follow it; a test checks the count).
+    pub const COLUMNS: [&'static str; 23] = crate::run_format::metric_columns();
 
     pub fn values(&self) -> [f64; 23] {
         [

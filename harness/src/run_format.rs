@@ -308,8 +308,39 @@ fn numbers(v: &[f64]) -> Vec<AxisValue> {
 pub const SEED: &str = "seed";
 
 /// The axis table. Keep each existing axis's name and position: the key text, and so every
-/// cell's id and seed, is made from it.
-pub const AXES: &[Axis] = &[
+/// cell's id and seed, is made from it. A new axis goes at the end, with
+/// [`InKey::UnlessNeutral`] (DEVELOPERS.md, "Adding a scenario axis").
+#[cfg(not(test))]
+pub const AXES: &[Axis] = &TABLE;
+
+/// In this crate's unit tests the table holds one more axis, `test_knob`, that nothing else in
+/// the code names: the tests see it reach the key, `cells.csv` and the report through the
+/// table alone (`harness/src/axis_table_tests.rs`).
+#[cfg(test)]
+pub const AXES: &[Axis] = &{
+    let mut t = [TEST_KNOB; TABLE.len() + 1];
+    let mut i = 0;
+    while i < TABLE.len() {
+        t[i] = TABLE[i];
+        i += 1;
+    }
+    t
+};
+
+#[cfg(test)]
+const TEST_KNOB: Axis = Axis {
+    name: "test_knob",
+    kind: AxisKind::Number,
+    default: |_| numbers(&[0.0]),
+    check: |v, _| number_in(v, |x| (0.0..=10.0).contains(&x), "0 ≤ knob ≤ 10"),
+    in_key: InKey::UnlessNeutral,
+    neutral: Some(0.0),
+    label: "test knob",
+    value_label: |t| format!("knob {t}"),
+    condition: true,
+};
+
+const TABLE: [Axis; 8] = [
     Axis {
         name: "slope_deg",
         kind: AxisKind::Number,
