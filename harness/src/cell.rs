@@ -174,10 +174,19 @@ impl CellSpec {
     /// The spec of `cell` in scenario `s`.
     pub fn of(s: &Scenario, cell: &Cell) -> CellSpec {
         CellSpec {
+            law: s.law_settings_for(cell.controller(), cell.rate_hz(), cell.actuator()),
+            ..CellSpec::scenario_defaults(s)
+        }
+    }
+
+    /// The scenario's settings with the laws' default settings (a probe sets its own law
+    /// settings, gait or duration on it).
+    pub fn scenario_defaults(s: &Scenario) -> CellSpec {
+        CellSpec {
             gait: s.gait.clone(),
             duration: s.duration,
             plant: s.plant,
-            law: s.law_settings_for(cell.controller(), cell.rate_hz(), cell.actuator()),
+            law: s.laws.clone(),
             mu_estimate_scale: s.mu_estimate_scale,
             noise: s.noise.clone(),
             falls: s.falls.clone(),

@@ -1,7 +1,7 @@
 //! The run-side commands (`run`, `check`, `trace`, `report`, `merge`) as library functions:
 //! flags in, text out, errors with the exit code they deserve.
 
-use crate::cell::{CellContext, TraceRow, run_cell};
+use crate::cell::{CellContext, CellSpec, TraceRow, run_cell, run_spec};
 use crate::matrix::{Cell, expand};
 use crate::run_format::AxisValue;
 use crate::runner::{RunError, RunOptions, merge, run};
@@ -221,24 +221,20 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
     // A probe of a fixed number of plant steps, so `check` answers in bounded time whatever
     // the step size.
     let probe = (crate::limits::CHECK_PROBE_STEPS as f64 * s.plant.dt).min(s.duration);
-    let mut short = s.clone();
-    short.duration = probe;
-    short.gait = crate::planner::Gait::Stand;
     let mut per_controller = Vec::new();
     for c in &s.axes.names("controller") {
         let cell = cells
             .iter()
             .find(|x| x.controller() == c)
             .expect("every controller has cells");
+        // The cell's own setup, standing for the probe's length.
+        let spec = CellSpec {
+            duration: probe,
+            gait: crate::planner::Gait::Stand,
+            ..CellSpec::of(&s, cell)
+        };
         let t0 = Instant::now();
-        run_cell(
-            &CellContext {
-                scenario: &short,
-                robot: &robot,
-            },
-            cell,
-            None,
-        );
+        run_spec(&robot, cell, &spec, None, None);
         per_controller.push((c.clone(), t0.elapsed().as_secs_f64() / probe));
     }
     let total_s: f64 = cells

@@ -15,7 +15,7 @@
 //!   contact behaviour a controlled robot sees (0.01–0.02 mm under the tuned PD), so it is
 //!   recorded for inspection but does not set the floor.
 
-use crate::cell::{CellContext, run_cell};
+use crate::cell::{CellSpec, run_spec};
 use crate::matrix::Cell;
 use crate::metrics::MetricsAccumulator;
 use crate::planner::{Gait, Plan};
@@ -53,18 +53,15 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
         return f64::NAN;
     };
     table.apply(&mut standing);
-    standing.gait = Gait::Stand;
     let cell = Cell::probe(1.0, plant_rate, ActuatorKind::Ideal, "stiff-pd");
-    run_cell(
-        &CellContext {
-            scenario: &standing,
-            robot,
-        },
-        &cell,
-        None,
-    )
-    .metrics
-    .slip_mean_mm
+    // The scenario's robot and plant settings, standing, with the gains just tuned.
+    let spec = CellSpec {
+        gait: Gait::Stand,
+        ..CellSpec::of(&standing, &cell)
+    };
+    run_spec(robot, &cell, &spec, None, None)
+        .metrics
+        .slip_mean_mm
 }
 
 /// The stand with every joint locked by the engine and no controller, mm per stance phase
