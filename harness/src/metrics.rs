@@ -1,4 +1,5 @@
-//! Per-cell metrics, accumulated every physics step (DESIGN.md, "Metrics"). Nothing here
+//! Per-cell metrics, accumulated every physics step (README, "Outputs", says what each
+//! column measures; the column list itself is `run_format::METRICS`). Nothing here
 //! allocates per step once built.
 
 use crate::plant::FootReading;
@@ -136,7 +137,7 @@ impl CellMetrics {
 /// Friction usage above this counts as "at the limit" (a sliding contact sits at exactly 1).
 const AT_LIMIT: f64 = 0.99;
 
-/// Slip of a planned-stance foot (DESIGN.md, "Metrics"; README, "Metrics columns").
+/// Slip of a planned-stance foot (README, "Outputs": `slip_mean_mm`).
 ///
 /// For each planned stance phase the accumulator integrates the tangential velocity of the
 /// foot sphere's material point at the ground contact, c − r n (c the centre, r the radius,

@@ -412,8 +412,8 @@ impl Verdict {
 
 /// The slip-floor rule: the lowest mean wins only if every other mean exceeds it by more than
 /// `floor`; every law within the floor of the lowest (difference ≤ floor) ties with it. A
-/// difference the plant's own jitter could produce is no evidence for either law (DESIGN.md,
-/// prototype findings: "never call one law better than another on differences below it").
+/// difference the plant's own jitter could produce is no evidence for either law, so no law is
+/// called better than another on a difference below it (README, "Outputs").
 pub fn judge(means: &[(usize, f64)], floor: f64) -> Verdict {
     let mut sorted: Vec<(usize, f64)> = means.iter().copied().filter(|m| m.1.is_finite()).collect();
     sorted.sort_by(|a, b| a.1.total_cmp(&b.1));
