@@ -366,7 +366,7 @@ impl<'a> CellSetup<'a> {
 
     /// Whether plant step `step` is a control step.
     pub fn is_control_step(&self, step: usize) -> bool {
-        step % self.every == 0
+        step.is_multiple_of(self.every)
     }
 
     /// Sense: the plan's target at `t`, the true state into the delay ring, and on a control

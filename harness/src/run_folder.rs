@@ -333,7 +333,7 @@ pub fn cells_of_manifest(m: &crate::run_format::Manifest) -> Result<Vec<Cell>, S
     }
     let axes = crate::scenario::Axes { values };
     let seeds = Some(m.seeds)
-        .filter(|s| (1..=crate::limits::MAX_SEEDS as u32).contains(s))
+        .filter(|s| (1..=crate::limits::MAX_SEEDS).contains(s))
         .ok_or("field `seeds` out of range")?;
     let count = axes.len_product(seeds);
     if count.is_none_or(|n| n > crate::limits::MAX_CELLS) {
