@@ -281,18 +281,7 @@ fn a_foot_radius_unlike_the_urdf_sphere_is_refused_with_both_values() {
 }
 
 fn cell(controller: &str) -> Cell {
-    Cell {
-        index: 0,
-        slope_deg: 0.0,
-        mu: 0.8,
-        rate_hz: 1000.0,
-        actuator: ActuatorKind::Ideal,
-        controller: controller.into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-    }
+    Cell::probe(0.8, 1000.0, ActuatorKind::Ideal, controller).set("slope_deg", 0.0)
 }
 
 #[test]

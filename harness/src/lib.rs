@@ -17,8 +17,12 @@ pub mod plant;
 pub mod report;
 pub mod robot;
 pub mod run_folder;
+pub mod run_format;
 pub mod runner;
 pub mod scenario;
 pub mod tuning;
 
 pub use gripsweep_controllers as controllers;
+
+#[cfg(test)]
+mod axis_table_tests;
