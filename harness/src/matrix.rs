@@ -130,7 +130,7 @@ mod tests {
             mu,
             rate_hz: 1000.0,
             actuator: ActuatorKind::Ideal,
-            controller: "id-lean".into(),
+            controller: "min-torque-id".into(),
             mass_scale: 1.0,
             com_shift_mm: 0.0,
             sensor_noise: 0.0,

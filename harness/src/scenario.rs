@@ -11,7 +11,7 @@ use crate::planner::Gait;
 use crate::plant::PlantSettings;
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
-use gripsweep_controllers::laws::{LawSettings, law_names};
+use gripsweep_controllers::laws::{LawField, LawSettings, law_names, registry};
 use serde::Deserialize;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -122,80 +122,16 @@ pub struct PlantFile {
 /// with the law's own allowed fields.
 pub type LawsFile = toml::Table;
 
-/// The fields `[laws.<name>]` accepts for a law: (field, is a feedback gain, may be zero).
-pub fn law_fields(law: &str) -> &'static [(&'static str, bool, bool)] {
-    const STIFF: &[(&str, bool, bool)] = &[("kp", true, false), ("kd", true, true)];
-    const LEAN: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-    ];
-    const GRIP: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-        ("tangent_weight", false, false),
-        ("normal_weight", false, true),
-        ("torque_weight", false, false),
-    ];
-    const GRIP_LOAD: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-        ("tangent_weight", false, false),
-        ("normal_weight", false, true),
-        ("torque_weight", false, false),
-        ("load_floor_share", false, false),
-    ];
-    const CONE: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-        ("tangent_weight", false, false),
-        ("normal_weight", false, true),
-        ("torque_weight", false, false),
-        ("load_floor_share", false, false),
-        ("cone_margin", false, true),
-        ("min_normal_force", false, true),
-    ];
-    match law {
-        "stiff-pd" => STIFF,
-        "id-lean" => LEAN,
-        "id-grip" => GRIP,
-        "id-grip-load" => GRIP_LOAD,
-        "cone-margin" => CONE,
-        _ => &[],
-    }
+/// The fields `[laws.<name>]` accepts for a law, as the law registry declares them (empty for
+/// an unknown law).
+pub fn law_fields(law: &str) -> Vec<LawField> {
+    registry::with(|r| r.get(law).map(|e| e.fields.clone()).unwrap_or_default())
 }
 
 /// Set one validated `[laws.<name>]` field on a law's settings.
-fn apply_law_field(law: &str, set: &mut LawSettings, field: &str, v: f64) {
-    match (law, field) {
-        ("stiff-pd", "kp") => set.stiff_kp = v,
-        ("stiff-pd", "kd") => set.stiff_kd = v,
-        (_, "task_kp") => {
-            set.base_kp = v;
-            set.orient_kp = v;
-            set.posture_kp = v;
-        }
-        (_, "task_kd") => {
-            set.base_kd = v;
-            set.orient_kd = v;
-            set.posture_kd = v;
-        }
-        (_, "joint_kp") => set.joint_kp = v,
-        (_, "joint_kd") => set.joint_kd = v,
-        (_, "tangent_weight") => set.tangent_weight = v,
-        (_, "normal_weight") => set.normal_weight = v,
-        (_, "torque_weight") => set.torque_weight = v,
-        (_, "load_floor_share") => set.load_floor_share = v,
-        (_, "cone_margin") => set.cone_margin = v,
-        (_, "min_normal_force") => set.min_normal_force = v,
-        _ => {}
+fn apply_law_field(fields: &[LawField], set: &mut LawSettings, field: &str, v: f64) {
+    if let Some(f) = fields.iter().find(|f| f.name == field) {
+        f.apply(set, v);
     }
 }
 
@@ -676,33 +612,25 @@ impl Scenario {
             }
             actuator.push(k);
         }
-        let controller = a
-            .controller
-            .clone()
-            .unwrap_or_else(|| law_names().iter().map(|s| s.to_string()).collect());
-        nonempty("axes.controller", controller.len())?;
-        if controller.len() > MAX_AXIS_VALUES {
+        let names = law_names();
+        let given = a.controller.clone().unwrap_or_else(|| names.clone());
+        nonempty("axes.controller", given.len())?;
+        if given.len() > MAX_AXIS_VALUES {
             return Err(fail(
                 "axes.controller",
-                format!(
-                    "{} values: allowed: at most {MAX_AXIS_VALUES}",
-                    controller.len()
-                ),
+                format!("{} values: allowed: at most {MAX_AXIS_VALUES}", given.len()),
             ));
         }
-        for (i, c) in controller.iter().enumerate() {
-            if !law_names().contains(&c.as_str()) {
-                return Err(fail(
-                    "axes.controller",
-                    format!(
-                        "unknown controller '{c}'; allowed: {}",
-                        law_names().join(", ")
-                    ),
-                ));
-            }
-            if controller[..i].contains(c) {
+        // Former names are accepted (with a notice) and stand for the law's current name.
+        let mut controller: Vec<String> = Vec::with_capacity(given.len());
+        for c in &given {
+            let Some(canonical) = registry::resolve(c) else {
+                return Err(fail("axes.controller", registry::with(|r| r.unknown(c))));
+            };
+            if controller.contains(&canonical) {
                 return Err(fail("axes.controller", format!("'{c}' appears twice")));
             }
+            controller.push(canonical);
         }
         let laws = LawSettings::default();
         let (mu_estimate_scale, law_tables) = parse_law_tables(&file.laws, &controller, &rate_hz)
@@ -916,6 +844,11 @@ fn parse_law_tables(
     };
     let names = law_names();
     for (key, value) in table {
+        // A former law name stands for the law's current name (with a notice).
+        let key = &match registry::resolve(key) {
+            Some(c) if names.contains(&c) => c,
+            _ => key.clone(),
+        };
         if key == "mu_estimate_scale" {
             let v = number("laws.mu_estimate_scale", value)?;
             if !(v.is_finite() && v > 0.0) {
@@ -928,11 +861,11 @@ fn parse_law_tables(
             continue;
         }
         let field = format!("laws.{key}");
-        if !names.contains(&key.as_str()) {
+        if !names.contains(key) {
             return Err((
                 field,
                 format!(
-                    "unknown field; allowed: mu_estimate_scale and one table per law: {}",
+                    "unknown field; allowed: mu_estimate_scale and one table per law: {} (a law of your own: README, \"Bringing your own controller\")",
                     names.join(", ")
                 ),
             ));
@@ -957,8 +890,8 @@ fn parse_law_tables(
                 if nested && f == "at_rate" {
                     continue;
                 }
-                let Some(&(_, _, zero_ok)) = allowed.iter().find(|(n, _, _)| n == f) else {
-                    let mut list: Vec<&str> = allowed.iter().map(|(n, _, _)| *n).collect();
+                let Some(decl) = allowed.iter().find(|d| &d.name == f) else {
+                    let mut list: Vec<&str> = allowed.iter().map(|d| d.name.as_str()).collect();
                     if nested {
                         list.push("at_rate");
                     }
@@ -968,19 +901,7 @@ fn parse_law_tables(
                     ));
                 };
                 let x = number(&fname, v)?;
-                let ok = x.is_finite() && (x > 0.0 || (zero_ok && x == 0.0));
-                if !ok {
-                    return Err((
-                        fname,
-                        format!(
-                            "{x}: allowed: a number {}",
-                            if zero_ok { "≥ 0" } else { "> 0" }
-                        ),
-                    ));
-                }
-                if *f == "cone_margin" && x >= 1.0 {
-                    return Err((fname, format!("{x}: allowed: 0 ≤ margin < 1")));
-                }
+                decl.check(x).map_err(|m| (fname.clone(), m))?;
                 fields.push((f.clone(), x));
             }
             Ok(fields)
@@ -1034,12 +955,15 @@ impl Scenario {
     /// A law's settings at a control rate before tuning: the defaults, then the law's
     /// `[laws.<name>]` fields, then its `at_rate` fields for this rate.
     pub fn law_base(&self, law: &str, rate_hz: f64) -> LawSettings {
-        let mut set = self.laws.clone();
+        let (mut set, fields) = registry::with(|r| match r.get(law) {
+            Some(e) => (e.with_defaults(&self.laws), e.fields.clone()),
+            None => (self.laws.clone(), Vec::new()),
+        });
         for pass_rate in [None, Some(rate_hz)] {
             for t in &self.law_tables {
                 if t.law == law && t.rate_hz == pass_rate {
                     for (f, v) in &t.fields {
-                        apply_law_field(law, &mut set, f, *v);
+                        apply_law_field(&fields, &mut set, f, *v);
                     }
                 }
             }
@@ -1050,10 +974,11 @@ impl Scenario {
     /// Whether the scenario pins any feedback gain of this law at this rate (tuning is then
     /// off for it).
     pub fn gains_pinned(&self, law: &str, rate_hz: f64) -> bool {
-        let gains: Vec<&str> = law_fields(law)
+        let fields = law_fields(law);
+        let gains: Vec<&str> = fields
             .iter()
-            .filter(|(_, g, _)| *g)
-            .map(|(n, _, _)| *n)
+            .filter(|d| d.kind.is_gain())
+            .map(|d| d.name.as_str())
             .collect();
         self.law_tables.iter().any(|t| {
             t.law == law

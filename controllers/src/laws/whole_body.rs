@@ -1,14 +1,16 @@
 //! What the model-based laws share: the dynamics terms at the observed state, the stance
 //! contact Jacobian and its orthogonal decomposition, the reference acceleration with feedback
 //! on the plan, and the low-gain joint PD. They differ only in how they pick τ (and so the
-//! contact forces) among the torques consistent with the constrained dynamics.
+//! contact forces) among the torques consistent with the constrained dynamics: a model-based
+//! law implements [`Distribution`] (that choice alone) and gets [`ControlLaw`] from the one
+//! skeleton here (prepare → distribute → predict the forces → joint feedback).
 //!
 //! Floating-base dynamics M v̇ + h = Sᵀτ + J_cᵀλ with stance feet held: J_c v̇ + J̇_c v = 0.
 //! QR of J_cᵀ = Q [R; 0], Q = [Q_c Q_u] (Mistry, Buchli & Schaal, "Inverse dynamics control of
 //! floating base systems using orthogonal decomposition", ICRA 2010): the rows Q_uᵀ remove the
 //! unknown contact forces, Q_uᵀ (M v̇ + h) = Q_uᵀ Sᵀ τ, and λ = R⁻¹ Q_cᵀ (M v̇ + h − Sᵀτ).
 
-use super::{LawSettings, LawStatus, Observation, Target};
+use super::{ControlLaw, LawSettings, LawStatus, Observation, Target};
 use crate::algorithms::{
     Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics, point_jacobian,
     rnea_after_fk, velocities_and_bias,
@@ -367,5 +369,71 @@ impl WholeBody {
             *f = Vec3::zeros();
         }
         self.output_with_joint_pd(obs, target, tau);
+    }
+}
+
+/// What a model-based law decides: τ (and so the contact forces) among the torques consistent
+/// with the constrained dynamics that [`WholeBody::prepare`] set up. Everything else of the
+/// control step — dynamics terms, stance Jacobian, reference acceleration, the force
+/// prediction, the joint feedback, the fallbacks — is the shared skeleton, so implementing this
+/// trait makes a [`ControlLaw`].
+pub trait Distribution: Send {
+    /// The registered name.
+    fn name(&self) -> &str;
+    fn body(&self) -> &WholeBody;
+    fn body_mut(&mut self) -> &mut WholeBody;
+    /// Fill `body.tau_id` for a stance set with at least two feet (with fewer, no contact-force
+    /// freedom is left and the skeleton uses the minimum-norm torque).
+    fn distribute(&mut self) -> LawStatus;
+    /// Whether [`Distribution::distribute`] already filled `body.forces` and `body.lambda`
+    /// (otherwise the skeleton predicts them from τ).
+    fn fills_forces(&self) -> bool {
+        false
+    }
+    /// On a failed distribution: apply the minimum-norm consistent torque (reported as failed)
+    /// instead of the joint feedback alone.
+    fn min_torque_on_failure(&self) -> bool {
+        false
+    }
+}
+
+impl<D: Distribution> ControlLaw for D {
+    fn name(&self) -> &str {
+        Distribution::name(self)
+    }
+    fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
+        if let Err(status) = self.body_mut().prepare(obs, target) {
+            self.body_mut().fallback(obs, target, tau);
+            return status;
+        }
+        // With fewer than two stance feet no contact-force freedom is left: the minimum-norm
+        // consistent torque is the only one.
+        let few = 3 * self.body().k < 6;
+        let status = if few {
+            self.body_mut().min_torque()
+        } else {
+            self.distribute()
+        };
+        if status == LawStatus::Failed {
+            let retry = !few && self.min_torque_on_failure();
+            let body = self.body_mut();
+            if retry && body.min_torque() != LawStatus::Failed {
+                body.predict_forces();
+                body.output_with_joint_pd(obs, target, tau);
+            } else {
+                body.fallback(obs, target, tau);
+            }
+            return LawStatus::Failed;
+        }
+        if few || !self.fills_forces() {
+            self.body_mut().predict_forces();
+        }
+        let body = self.body_mut();
+        body.remember_loads(target.stance);
+        body.output_with_joint_pd(obs, target, tau);
+        status
+    }
+    fn predicted_forces(&self) -> &[Vec3] {
+        &self.body().forces
     }
 }

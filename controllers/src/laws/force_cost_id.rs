@@ -1,4 +1,5 @@
-//! Floating-base inverse dynamics that distributes the contact forces by a quadratic cost on
+//! Contact-force-cost inverse dynamics and its load-normalised variant: floating-base inverse
+//! dynamics that distributes the contact forces by a quadratic cost on
 //! the predicted forces in each foot's surface frame plus a small torque cost (Righetti, Buchli,
 //! Mistry, Kalakrishnan & Schaal, "Optimal distribution of contact forces with inverse-dynamics
 //! control", IJRR 2013). The consistent torques are τ with A τ = b (A = Q_uᵀSᵀ, b = Q_uᵀ(M v̇ +
@@ -13,16 +14,19 @@
 //!   expected normal load (last step's prediction, floored), so the cost evens out the
 //!   tangential/normal ratios instead of the newtons. On a slope the uphill feet carry less;
 //!   the published weighting spreads tangential newtons evenly and so gives the light feet the
-//!   worst ratio (see DESIGN.md, prototype findings).
+//!   worst ratio.
+//!
+//! Only this distribution lives here; the rest of the control step is the shared skeleton
+//! ([`super::whole_body`]).
 
-use super::whole_body::WholeBody;
-use super::{ControlLaw, LawSettings, LawStatus, Observation, Target};
+use super::whole_body::{Distribution, WholeBody};
+use super::{ControlLaw, LawSettings, LawStatus};
 use crate::dense::{lu_solve_in_place, solve_upper};
 use crate::model::Model;
-use crate::spatial::{Mat3, Vec3};
+use crate::spatial::Mat3;
 use nalgebra::DMatrix;
 
-pub struct IdGrip {
+pub struct ForceCostId {
     pub body: WholeBody,
     load_normalised: bool,
     /// B = R⁻¹ Q_cᵀ Sᵀ (3k × nj) and λ₀.
@@ -35,7 +39,10 @@ pub struct IdGrip {
     col: Vec<f64>,
 }
 
-impl IdGrip {
+impl ForceCostId {
+    /// The registered names: as published, and load-normalised.
+    pub const NAME: &'static str = "force-cost-id";
+    pub const NAME_LOAD: &'static str = "force-cost-id-load";
     pub fn new(
         model: Model,
         feet: Vec<usize>,
@@ -46,7 +53,7 @@ impl IdGrip {
         let nj = model.n_joints();
         let nv = model.nv();
         let body = WholeBody::new(model, feet, settings);
-        IdGrip {
+        ForceCostId {
             body,
             load_normalised,
             b_mat: DMatrix::zeros(3 * nf, nj),
@@ -85,7 +92,7 @@ impl IdGrip {
         (Mat3::identity() - nnt) * w_t + nnt * s.normal_weight
     }
 
-    fn distribute(&mut self) -> LawStatus {
+    fn solve_kkt(&mut self) -> LawStatus {
         let body = &self.body;
         let (k, nj) = (body.k, body.nj);
         let k3 = 3 * k;
@@ -162,36 +169,21 @@ impl IdGrip {
     }
 }
 
-impl ControlLaw for IdGrip {
-    fn name(&self) -> &'static str {
+impl Distribution for ForceCostId {
+    fn name(&self) -> &str {
         if self.load_normalised {
-            "id-grip-load"
+            Self::NAME_LOAD
         } else {
-            "id-grip"
+            Self::NAME
         }
     }
-    fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
-        if let Err(status) = self.body.prepare(obs, target) {
-            self.body.fallback(obs, target, tau);
-            return status;
-        }
-        // With fewer than two stance feet no torque freedom is left: the minimum-torque
-        // solution is the only consistent one.
-        let status = if 3 * self.body.k < 6 {
-            self.body.min_torque()
-        } else {
-            self.distribute()
-        };
-        if status == LawStatus::Failed {
-            self.body.fallback(obs, target, tau);
-            return status;
-        }
-        self.body.predict_forces();
-        self.body.remember_loads(target.stance);
-        self.body.output_with_joint_pd(obs, target, tau);
-        status
+    fn body(&self) -> &WholeBody {
+        &self.body
     }
-    fn predicted_forces(&self) -> &[Vec3] {
-        &self.body.forces
+    fn body_mut(&mut self) -> &mut WholeBody {
+        &mut self.body
+    }
+    fn distribute(&mut self) -> LawStatus {
+        self.solve_kkt()
     }
 }
