@@ -486,3 +486,81 @@ fn registry_refuses_duplicate_and_former_names_and_checks_own_fields() {
     reg.add_or_replace(pd("piped").at_run_time()).unwrap();
     assert_eq!(reg.names().iter().filter(|n| *n == "piped").count(), 1);
 }
+
+/// Counts the allocations of the calling thread only (tests of this file run in parallel).
+struct ThreadCounting;
+
+thread_local! {
+    static THREAD_ALLOCS: std::cell::Cell<u64> = const { std::cell::Cell::new(0) };
+}
+
+unsafe impl std::alloc::GlobalAlloc for ThreadCounting {
+    unsafe fn alloc(&self, layout: std::alloc::Layout) -> *mut u8 {
+        THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: std::alloc::Layout) {
+        unsafe { std::alloc::System.dealloc(ptr, layout) }
+    }
+    unsafe fn alloc_zeroed(&self, layout: std::alloc::Layout) -> *mut u8 {
+        THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.alloc_zeroed(layout) }
+    }
+    unsafe fn realloc(
+        &self,
+        ptr: *mut u8,
+        layout: std::alloc::Layout,
+        new_size: usize,
+    ) -> *mut u8 {
+        THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.realloc(ptr, layout, new_size) }
+    }
+}
+
+#[global_allocator]
+static COUNTING: ThreadCounting = ThreadCounting;
+
+#[test]
+fn no_law_allocates_in_a_control_step() {
+    let r = robot();
+    for deg in [0.0, 12.0] {
+        let st = settings_for(deg, 0.8);
+        let cases = cases(&r, deg);
+        let mut tau = vec![0.0; 12];
+        for name in law_names() {
+            let mut law = build_law(&name, r.model.clone(), r.foot_frames(), &st).unwrap();
+            let mut step = |law: &mut Box<dyn ControlLaw>, c: &Case| {
+                law.compute(
+                    &Observation { q: &c.q, v: &c.v },
+                    &Target {
+                        q: &c.q_ref,
+                        v: &c.v_ref,
+                        a: &c.a_ref,
+                        stance: &c.stance,
+                    },
+                    &mut tau,
+                )
+            };
+            // First pass: a law may build what it caches per stance set (the cone program's
+            // solvers); afterwards every step must run in the buffers it has.
+            for c in &cases {
+                step(&mut law, c);
+            }
+            let before = THREAD_ALLOCS.with(|c| c.get());
+            for _ in 0..3 {
+                for c in &cases {
+                    step(&mut law, c);
+                }
+            }
+            let allocs = THREAD_ALLOCS.with(|c| c.get()) - before;
+            if name == "cone-program" {
+                // Our update path allocates nothing; Clarabel 0.11's `IPSolver::solve` inserts
+                // into its phase-timer map (`Timers::start_as_current`), at most once per
+                // solve, and a step solves the strict and sometimes the relaxed program.
+                assert!(allocs <= 2 * 24, "{name} at {deg}°: {allocs} allocations in 24 steps");
+            } else {
+                assert_eq!(allocs, 0, "{name} at {deg}°: {allocs} allocations in 24 steps");
+            }
+        }
+    }
+}
