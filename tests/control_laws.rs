@@ -194,6 +194,7 @@ fn minimum_torque_is_minimal_among_consistent_torques() {
     for c in cases(&r, 8.0) {
         let mut lean = MinTorqueId::new(r.model.clone(), r.foot_frames(), &st);
         run(&mut lean, &c);
+        lean.body.ensure_qr();
         let a = projected_matrix(&lean.body);
         let pinv = a.clone().pseudo_inverse(1e-12).unwrap();
         let null = DMatrix::identity(12, 12) - &pinv * &a;
@@ -506,12 +507,7 @@ unsafe impl std::alloc::GlobalAlloc for ThreadCounting {
         THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
         unsafe { std::alloc::System.alloc_zeroed(layout) }
     }
-    unsafe fn realloc(
-        &self,
-        ptr: *mut u8,
-        layout: std::alloc::Layout,
-        new_size: usize,
-    ) -> *mut u8 {
+    unsafe fn realloc(&self, ptr: *mut u8, layout: std::alloc::Layout, new_size: usize) -> *mut u8 {
         THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
         unsafe { std::alloc::System.realloc(ptr, layout, new_size) }
     }
@@ -557,9 +553,15 @@ fn no_law_allocates_in_a_control_step() {
                 // Our update path allocates nothing; Clarabel 0.11's `IPSolver::solve` inserts
                 // into its phase-timer map (`Timers::start_as_current`), at most once per
                 // solve, and a step solves the strict and sometimes the relaxed program.
-                assert!(allocs <= 2 * 24, "{name} at {deg}°: {allocs} allocations in 24 steps");
+                assert!(
+                    allocs <= 2 * 24,
+                    "{name} at {deg}°: {allocs} allocations in 24 steps"
+                );
             } else {
-                assert_eq!(allocs, 0, "{name} at {deg}°: {allocs} allocations in 24 steps");
+                assert_eq!(
+                    allocs, 0,
+                    "{name} at {deg}°: {allocs} allocations in 24 steps"
+                );
             }
         }
     }

@@ -121,6 +121,12 @@ pub fn cholesky_in_place(a: &mut DMatrix<f64>, n: usize) -> bool {
     true
 }
 
+/// The smallest diagonal entry of a Cholesky factor's top-left n × n block (the smallest |R_jj|
+/// of the QR of the factored matrix's square root, for rank checks); ∞ for n = 0.
+pub fn min_pivot(l: &DMatrix<f64>, n: usize) -> f64 {
+    (0..n).map(|i| l[(i, i)]).fold(f64::INFINITY, f64::min)
+}
+
 /// Solve L Lᵀ x = b in place with the factor from [`cholesky_in_place`].
 pub fn cholesky_solve(l: &DMatrix<f64>, n: usize, b: &mut [f64]) {
     for i in 0..n {

@@ -3,9 +3,9 @@
 //! vec![my_law::entry()]) }` (README, "Bringing your own controller"). Output for programs
 //! goes to stdout, messages to stderr; bad input exits with code 2.
 
-use clap::{Parser, Subcommand};
 use crate::cli_robot::{self, CliError, RobotArgs};
 use crate::cli_run::{self, CheckArgs, MergeArgs, ReportArgs, RunArgs, TraceArgs, TuneArgs};
+use clap::{Parser, Subcommand};
 use gripsweep_controllers::laws::{LawEntry, Registry, registry};
 use std::io::Write;
 use std::process::ExitCode;

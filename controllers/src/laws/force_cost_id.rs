@@ -37,6 +37,8 @@ pub struct ForceCostId {
     kkt: DMatrix<f64>,
     kkt_rhs: Vec<f64>,
     col: Vec<f64>,
+    /// Each stance foot's weight this step (world axes).
+    weights: Vec<Mat3>,
 }
 
 impl ForceCostId {
@@ -62,6 +64,7 @@ impl ForceCostId {
             kkt: DMatrix::zeros(nj + nv, nj + nv),
             kkt_rhs: vec![0.0; nj + nv],
             col: vec![0.0; 3 * nf],
+            weights: Vec::with_capacity(nf),
         }
     }
     pub fn boxed_published(
@@ -183,7 +186,24 @@ impl Distribution for ForceCostId {
     fn body_mut(&mut self) -> &mut WholeBody {
         &mut self.body
     }
+    /// Solved in the contact forces (Cholesky of the SPD force-space system, see
+    /// [`WholeBody::solve_in_forces`]); the torque-space KKT system by LU when that system is
+    /// not positive definite (e.g. a zero normal weight and a singular leg).
     fn distribute(&mut self) -> LawStatus {
-        self.solve_kkt()
+        let k = self.body.k;
+        let mut weights = std::mem::take(&mut self.weights);
+        weights.clear();
+        for c in 0..k {
+            weights.push(self.foot_weight(self.body.stance[c], k));
+        }
+        let wt = self.body.settings.torque_weight;
+        let done = self.body.solve_in_forces(wt, Some(&|c| weights[c]));
+        self.weights = weights;
+        if done {
+            LawStatus::Solved
+        } else {
+            self.body.ensure_qr();
+            self.solve_kkt()
+        }
     }
 }

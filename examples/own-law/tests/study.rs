@@ -74,9 +74,15 @@ fn own_fields_are_checked_from_the_law_declaration() {
             base.replace("kd = 3.0", "kq = 3.0"),
             "field `laws.compensated-pd.kq`: unknown field for compensated-pd; allowed: kp, kd, at_rate",
         ),
-        (base.replace("kp = 300.0", "kp = -1.0"), "laws.compensated-pd.kp`: -1: allowed: a number > 0"),
         (
-            base.replace("controller = [\"compensated-pd\"]", "controller = [\"my-wbc\"]"),
+            base.replace("kp = 300.0", "kp = -1.0"),
+            "laws.compensated-pd.kp`: -1: allowed: a number > 0",
+        ),
+        (
+            base.replace(
+                "controller = [\"compensated-pd\"]",
+                "controller = [\"my-wbc\"]",
+            ),
             "Bringing your own controller",
         ),
     ] {
