@@ -230,13 +230,20 @@ impl WholeBody {
             }
             self.vdot[r] = self.vdot_ref[r] - corr;
         }
-        // rhs = M v̇ + h
-        for r in 0..self.nv {
-            let mut sum = self.h[r];
-            for col in 0..self.nv {
-                sum += ws.mass_matrix[(r, col)] * self.vdot[col];
+        // rhs = M v̇ + h, by columns of M (contiguous).
+        self.rhs.copy_from(&self.h);
+        let nv = self.nv;
+        let m = ws.mass_matrix.as_slice();
+        let ldm = ws.mass_matrix.nrows();
+        for col in 0..nv {
+            let x = self.vdot[col];
+            if x != 0.0 {
+                self.rhs
+                    .as_mut_slice()
+                    .iter_mut()
+                    .zip(&m[col * ldm..col * ldm + nv])
+                    .for_each(|(y, a)| *y += a * x);
             }
-            self.rhs[r] = sum;
         }
         Ok(())
     }
