@@ -65,9 +65,9 @@ impl ControlLaw for CompensatedPd {
     fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
         forward_kinematics(&self.model, &mut self.ws, obs.q);
         rnea_after_fk(&self.model, &mut self.ws, obs.v, &self.zero);
-        for j in 0..self.nj {
+        for (j, t) in tau.iter_mut().enumerate().take(self.nj) {
             let (iq, iv) = (self.q0 + j, self.v0 + j);
-            tau[j] = self.ws.tau[iv]
+            *t = self.ws.tau[iv]
                 + self.kp * (target.q[iq] - obs.q[iq])
                 + self.kd * (target.v[iv] - obs.v[iv]);
         }
