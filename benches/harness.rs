@@ -151,7 +151,7 @@ fn main() {
         "run_cell s",
         "diff %"
     );
-    for law in ["stiff-pd", "id-grip-load"] {
+    for law in ["stiff-pd", "force-cost-id-load"] {
         let c = cell(law);
         let runs: Vec<Parts> = (0..repeats).map(|_| replay(&s, &robot, &c)).collect();
         let real: Vec<f64> = (0..repeats)

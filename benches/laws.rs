@@ -167,9 +167,9 @@ fn criterion_part(c: &mut Criterion, robot: &LoadedRobot, steps: &[Step]) {
     let mut group = c.benchmark_group("law_step");
     let mut tau = vec![0.0; robot.model.n_joints()];
     for name in law_names() {
-        let mut law = build(robot, name);
+        let mut law = build(robot, &name);
         let mut k = 0;
-        group.bench_function(name, |b| {
+        group.bench_function(&name, |b| {
             b.iter(|| {
                 let s = &steps[k % steps.len()];
                 k += 1;
@@ -225,7 +225,7 @@ fn tail_part(robot: &LoadedRobot, steps: &[Step], calls: usize) {
     );
     let mut tau = vec![0.0; robot.model.n_joints()];
     for name in law_names() {
-        let mut law = build(robot, name);
+        let mut law = build(robot, &name);
         for s in steps.iter().cycle().take(calls.min(n)) {
             black_box(call(law.as_mut(), s, &mut tau));
         }

@@ -5,9 +5,9 @@
 use gripsweep::robot::LoadedRobot;
 use gripsweep_controllers::algorithms::{Workspace, forward_kinematics, frame_pose};
 use gripsweep_controllers::configuration::set_base_pose;
-use gripsweep_controllers::laws::cone_program::ConeMargin;
-use gripsweep_controllers::laws::id_min_torque::IdLean;
-use gripsweep_controllers::laws::id_tangent::IdGrip;
+use gripsweep_controllers::laws::cone_program::ConeProgram;
+use gripsweep_controllers::laws::force_cost_id::ForceCostId;
+use gripsweep_controllers::laws::min_torque_id::MinTorqueId;
 use gripsweep_controllers::laws::whole_body::WholeBody;
 use gripsweep_controllers::laws::{
     ControlLaw, LawSettings, LawStatus, Observation, Target, build_law, law_names,
@@ -133,7 +133,7 @@ fn every_registered_law_builds_by_name() {
     let r = robot();
     for name in law_names() {
         let law = build_law(
-            name,
+            &name,
             r.model.clone(),
             r.foot_frames(),
             &LawSettings::default(),
@@ -149,7 +149,7 @@ fn every_registered_law_builds_by_name() {
     )
     .err()
     .unwrap();
-    assert!(err.contains("allowed") && err.contains("id-lean"));
+    assert!(err.contains("allowed") && err.contains("min-torque-id"));
 }
 
 #[test]
@@ -158,25 +158,25 @@ fn inverse_dynamics_laws_are_consistent_with_the_constrained_dynamics() {
     for deg in [0.0, 12.0] {
         let st = settings_for(deg, 0.8);
         for c in cases(&r, deg) {
-            let mut lean = IdLean::new(r.model.clone(), r.foot_frames(), &st);
-            let mut grip = IdGrip::new(r.model.clone(), r.foot_frames(), &st, false);
-            let mut grip_load = IdGrip::new(r.model.clone(), r.foot_frames(), &st, true);
-            let mut cone = ConeMargin::new(r.model.clone(), r.foot_frames(), &st);
+            let mut lean = MinTorqueId::new(r.model.clone(), r.foot_frames(), &st);
+            let mut grip = ForceCostId::new(r.model.clone(), r.foot_frames(), &st, false);
+            let mut grip_load = ForceCostId::new(r.model.clone(), r.foot_frames(), &st, true);
+            let mut cone = ConeProgram::new(r.model.clone(), r.foot_frames(), &st);
             assert_eq!(run(&mut lean, &c).0, LawStatus::Solved);
             assert_eq!(run(&mut grip, &c).0, LawStatus::Solved);
             assert_eq!(run(&mut grip_load, &c).0, LawStatus::Solved);
             let (cs, _) = run(&mut cone, &c);
             for (name, body) in [
-                ("id-lean", &lean.body),
-                ("id-grip", &grip.body),
-                ("id-grip-load", &grip_load.body),
+                ("min-torque-id", &lean.body),
+                ("force-cost-id", &grip.body),
+                ("force-cost-id-load", &grip_load.body),
             ] {
                 let res = dynamics_residual(body);
                 assert!(res < 1e-9, "{name} at {deg}°: residual {res:e}");
             }
             if cs == LawStatus::Solved {
                 let res = dynamics_residual(&cone.body);
-                assert!(res < 1e-9, "cone-margin at {deg}°: residual {res:e}");
+                assert!(res < 1e-9, "cone-program at {deg}°: residual {res:e}");
             }
         }
     }
@@ -192,8 +192,9 @@ fn minimum_torque_is_minimal_among_consistent_torques() {
     let r = robot();
     let st = settings_for(8.0, 0.8);
     for c in cases(&r, 8.0) {
-        let mut lean = IdLean::new(r.model.clone(), r.foot_frames(), &st);
+        let mut lean = MinTorqueId::new(r.model.clone(), r.foot_frames(), &st);
         run(&mut lean, &c);
+        lean.body.ensure_qr();
         let a = projected_matrix(&lean.body);
         let pinv = a.clone().pseudo_inverse(1e-12).unwrap();
         let null = DMatrix::identity(12, 12) - &pinv * &a;
@@ -230,8 +231,8 @@ fn contact_force_cost_lowers_tangential_forces_below_minimum_torque() {
     for deg in [0.0, 10.0, 20.0] {
         let st = settings_for(deg, 0.8);
         for c in cases(&r, deg) {
-            let mut lean = IdLean::new(r.model.clone(), r.foot_frames(), &st);
-            let mut grip = IdGrip::new(r.model.clone(), r.foot_frames(), &st, false);
+            let mut lean = MinTorqueId::new(r.model.clone(), r.foot_frames(), &st);
+            let mut grip = ForceCostId::new(r.model.clone(), r.foot_frames(), &st, false);
             run(&mut lean, &c);
             run(&mut grip, &c);
             let n = st.ground_normal;
@@ -255,7 +256,12 @@ fn load_normalised_cost_evens_out_the_friction_ratio_on_a_slope() {
         let c = &cases(&r, deg)[0];
         let n = st.ground_normal;
         let mut ratios = Vec::new();
-        for name in ["id-lean", "id-grip", "id-grip-load", "cone-margin"] {
+        for name in [
+            "min-torque-id",
+            "force-cost-id",
+            "force-cost-id-load",
+            "cone-program",
+        ] {
             let mut law = build_law(name, r.model.clone(), r.foot_frames(), &st).unwrap();
             // The expected loads come from the previous step: a few steps on the same state
             // settle them.
@@ -284,7 +290,7 @@ fn load_normalised_cost_evens_out_the_friction_ratio_on_a_slope() {
         let cone = ratios[3].1;
         assert!(
             cone <= load + 1e-9 && (cone - tan).abs() < 0.01 * tan,
-            "{deg}°: cone-margin max ratio {cone}, tan θ {tan}"
+            "{deg}°: cone-program max ratio {cone}, tan θ {tan}"
         );
     }
 }
@@ -296,7 +302,7 @@ fn cone_program_respects_the_cones_and_reports_demands_beyond_friction() {
         let st = settings_for(deg, 0.6);
         let mu_margin = st.mu_estimate * (1.0 - st.cone_margin);
         for c in cases(&r, deg) {
-            let mut cone = ConeMargin::new(r.model.clone(), r.foot_frames(), &st);
+            let mut cone = ConeProgram::new(r.model.clone(), r.foot_frames(), &st);
             let (status, _) = run(&mut cone, &c);
             // With four feet the demand is always within the cones here; with a hind foot
             // lifted the centre of mass lies outside the remaining triangle, which no set of
@@ -323,7 +329,7 @@ fn cone_program_respects_the_cones_and_reports_demands_beyond_friction() {
     // 25° needs μ ≥ tan 25° = 0.47 to stand; the controller believes μ̂ = 0.4.
     let st = settings_for(25.0, 0.4);
     let c = &cases(&r, 25.0)[0];
-    let mut cone = ConeMargin::new(r.model.clone(), r.foot_frames(), &st);
+    let mut cone = ConeProgram::new(r.model.clone(), r.foot_frames(), &st);
     let (status, tau) = run(&mut cone, c);
     assert_eq!(status, LawStatus::Infeasible);
     assert!(cone.last_slack > 1.0 && tau.iter().all(|t| t.is_finite()));
@@ -359,7 +365,7 @@ fn cone_program_ratios_at_the_contact_point_equal_tan_theta_standing_on_slopes()
             let q = standing(r, deg);
             for stance in &stances {
                 let zero = DVector::zeros(nv);
-                let mut law = ConeMargin::new(r.model.clone(), r.foot_frames(), &st);
+                let mut law = ConeProgram::new(r.model.clone(), r.foot_frames(), &st);
                 let mut tau = vec![0.0; nj];
                 let mut status = LawStatus::Failed;
                 // The expected loads come from the previous step: a few steps settle them.
@@ -392,6 +398,170 @@ fn cone_program_ratios_at_the_contact_point_equal_tan_theta_standing_on_slopes()
                         r.model.name
                     );
                 }
+            }
+        }
+    }
+}
+
+#[test]
+fn former_names_build_the_renamed_laws_and_output_the_new_names() {
+    let r = robot();
+    for (old, new) in [
+        ("id-lean", "min-torque-id"),
+        ("id-grip", "force-cost-id"),
+        ("id-grip-load", "force-cost-id-load"),
+        ("cone-margin", "cone-program"),
+    ] {
+        let law = build_law(
+            old,
+            r.model.clone(),
+            r.foot_frames(),
+            &LawSettings::default(),
+        )
+        .unwrap();
+        assert_eq!(law.name(), new);
+        assert!(!law_names().iter().any(|n| n == old), "{old} is not listed");
+    }
+}
+
+#[test]
+fn scenario_with_former_names_runs_under_the_new_names() {
+    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios");
+    let text = r#"
+name = "aliases"
+duration = 1.0
+[axes]
+slope_deg = [0.0]
+mu = [0.8]
+controller = ["stiff-pd", "id-grip-load", "cone-margin"]
+[laws.id-grip-load]
+tangent_weight = 2.0
+[laws.cone-margin]
+cone_margin = 0.2
+"#;
+    let s = gripsweep::scenario::Scenario::from_text("aliases.toml", text, Some(&dir)).unwrap();
+    assert_eq!(
+        s.axes.names("controller"),
+        ["stiff-pd", "force-cost-id-load", "cone-program"]
+    );
+    assert_eq!(s.law_base("force-cost-id-load", 1000.0).tangent_weight, 2.0);
+    assert_eq!(s.law_base("cone-program", 1000.0).cone_margin, 0.2);
+    // The old and the new name of one law in one scenario name it twice.
+    let twice = text.replace(r#""stiff-pd","#, r#""stiff-pd", "cone-program","#);
+    let err = gripsweep::scenario::Scenario::from_text("aliases.toml", &twice, Some(&dir))
+        .err()
+        .unwrap();
+    assert!(err.0.contains("appears twice"), "{}", err.0);
+}
+
+#[test]
+fn registry_refuses_duplicate_and_former_names_and_checks_own_fields() {
+    use gripsweep_controllers::laws::stiff_pd::StiffPd;
+    use gripsweep_controllers::laws::{FieldKind, LawEntry, LawField, Registry};
+    let mut reg = Registry::builtin();
+    let pd = |name: &str| LawEntry::new(name, "test", |m, f, s| Ok(StiffPd::boxed(m, f, s)));
+    let e = reg.add(pd("stiff-pd")).unwrap_err();
+    assert!(e.contains("'stiff-pd'") && e.contains("twice"), "{e}");
+    let e = reg.add(pd("id-lean")).unwrap_err();
+    assert!(e.contains("former name of 'min-torque-id'"), "{e}");
+    let e = reg.add(pd("My Law")).unwrap_err();
+    assert!(e.contains("allowed: lowercase"), "{e}");
+    let bad_default = pd("mine").field(LawField::own("kp", FieldKind::Stiffness, -1.0));
+    assert!(
+        reg.add(bad_default)
+            .unwrap_err()
+            .contains("default of field 'kp'")
+    );
+    let twice = pd("mine")
+        .field(LawField::own("kp", FieldKind::Stiffness, 1.0))
+        .field(LawField::own("kp", FieldKind::Damping, 1.0));
+    assert!(reg.add(twice).unwrap_err().contains("declared twice"));
+    reg.add(pd("mine").field(LawField::own("kp", FieldKind::Stiffness, 1.0)))
+        .unwrap();
+    assert!(reg.names().iter().any(|n| n == "mine"));
+    let unknown = reg.unknown("nope");
+    assert!(unknown.contains("mine") && unknown.contains("Bringing your own controller"));
+    // Run-time entries may be replaced (the same scenario read twice), others never.
+    assert!(reg.add_or_replace(pd("mine")).is_err());
+    reg.add_or_replace(pd("piped").at_run_time()).unwrap();
+    reg.add_or_replace(pd("piped").at_run_time()).unwrap();
+    assert_eq!(reg.names().iter().filter(|n| *n == "piped").count(), 1);
+}
+
+/// Counts the allocations of the calling thread only (tests of this file run in parallel).
+struct ThreadCounting;
+
+thread_local! {
+    static THREAD_ALLOCS: std::cell::Cell<u64> = const { std::cell::Cell::new(0) };
+}
+
+unsafe impl std::alloc::GlobalAlloc for ThreadCounting {
+    unsafe fn alloc(&self, layout: std::alloc::Layout) -> *mut u8 {
+        THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: std::alloc::Layout) {
+        unsafe { std::alloc::System.dealloc(ptr, layout) }
+    }
+    unsafe fn alloc_zeroed(&self, layout: std::alloc::Layout) -> *mut u8 {
+        THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.alloc_zeroed(layout) }
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: std::alloc::Layout, new_size: usize) -> *mut u8 {
+        THREAD_ALLOCS.with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.realloc(ptr, layout, new_size) }
+    }
+}
+
+#[global_allocator]
+static COUNTING: ThreadCounting = ThreadCounting;
+
+#[test]
+fn no_law_allocates_in_a_control_step() {
+    let r = robot();
+    for deg in [0.0, 12.0] {
+        let st = settings_for(deg, 0.8);
+        let cases = cases(&r, deg);
+        let mut tau = vec![0.0; 12];
+        for name in law_names() {
+            let mut law = build_law(&name, r.model.clone(), r.foot_frames(), &st).unwrap();
+            let mut step = |law: &mut Box<dyn ControlLaw>, c: &Case| {
+                law.compute(
+                    &Observation { q: &c.q, v: &c.v },
+                    &Target {
+                        q: &c.q_ref,
+                        v: &c.v_ref,
+                        a: &c.a_ref,
+                        stance: &c.stance,
+                    },
+                    &mut tau,
+                )
+            };
+            // First pass: a law may build what it caches per stance set (the cone program's
+            // solvers); afterwards every step must run in the buffers it has.
+            for c in &cases {
+                step(&mut law, c);
+            }
+            let before = THREAD_ALLOCS.with(|c| c.get());
+            for _ in 0..3 {
+                for c in &cases {
+                    step(&mut law, c);
+                }
+            }
+            let allocs = THREAD_ALLOCS.with(|c| c.get()) - before;
+            if name == "cone-program" {
+                // Our update path allocates nothing; Clarabel 0.11's `IPSolver::solve` inserts
+                // into its phase-timer map (`Timers::start_as_current`), at most once per
+                // solve, and a step solves the strict and sometimes the relaxed program.
+                assert!(
+                    allocs <= 2 * 24,
+                    "{name} at {deg}°: {allocs} allocations in 24 steps"
+                );
+            } else {
+                assert_eq!(
+                    allocs, 0,
+                    "{name} at {deg}°: {allocs} allocations in 24 steps"
+                );
             }
         }
     }

@@ -38,7 +38,7 @@ shifts = "even"
 slope_deg = [0.0, 8.0]
 mu = [0.5, 0.9]
 rate_hz = [1000.0]
-controller = ["stiff-pd", "id-grip-load"]
+controller = ["stiff-pd", "force-cost-id-load"]
 {extra_axes}
 "#,
         robot_path()
@@ -439,7 +439,7 @@ fn check_and_trace_work_on_a_small_scenario() {
         "--pick",
         "mu=0.9",
         "--pick",
-        "controller=id-grip-load",
+        "controller=force-cost-id-load",
         "--out",
         trace.to_str().unwrap(),
     ]);

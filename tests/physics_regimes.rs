@@ -14,10 +14,10 @@ use rayon::prelude::*;
 
 const LAWS: [&str; 5] = [
     "stiff-pd",
-    "id-lean",
-    "id-grip",
-    "id-grip-load",
-    "cone-margin",
+    "min-torque-id",
+    "force-cost-id",
+    "force-cost-id-load",
+    "cone-program",
 ];
 
 fn scenario(gait: &str, duration: f64) -> Scenario {
@@ -68,7 +68,7 @@ fn every_law_stands_and_crawls_for_ten_seconds_on_good_ground() {
             // at the ground point, 133 mm at the sphere centre, when written) that the
             // tracking test calls it `no-control` on the crawl: it stays up but is not ranked.
             let drifted = gait == "crawl"
-                && c.controller() == "id-lean"
+                && c.controller() == "min-torque-id"
                 && out.status == CellStatus::NoControl
                 && out.message.contains("off the plan");
             assert!(
@@ -154,17 +154,20 @@ fn load_normalised_contact_cost_holds_where_minimum_torque_slips() {
     let s = scenario("weight-shift", 4.0);
     let robot = LoadedRobot::demo().unwrap();
     let floor = slip_floor(&s, &robot);
-    let cells = [cell(6.0, 0.3, "id-lean"), cell(6.0, 0.3, "id-grip-load")];
+    let cells = [
+        cell(6.0, 0.3, "min-torque-id"),
+        cell(6.0, 0.3, "force-cost-id-load"),
+    ];
     let out = run_all(&s, &cells);
     let (lean, load) = (&out[0].metrics, &out[1].metrics);
     eprintln!(
-        "6°, μ 0.3: id-lean {:.3} mm, id-grip-load {:.3} mm per stance phase (floor {floor:.4})",
+        "6°, μ 0.3: min-torque-id {:.3} mm, force-cost-id-load {:.3} mm per stance phase (floor {floor:.4})",
         lean.slip_mean_mm, load.slip_mean_mm
     );
     assert!(out[1].status == CellStatus::Ok);
     assert!(
         lean.slip_mean_mm > load.slip_mean_mm + 10.0 * floor + 5.0,
-        "id-lean {} vs id-grip-load {}",
+        "min-torque-id {} vs force-cost-id-load {}",
         lean.slip_mean_mm,
         load.slip_mean_mm
     );

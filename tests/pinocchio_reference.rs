@@ -231,7 +231,7 @@ fn contact_point_jacobians_and_statics_forces_match_pinocchio_on_slopes() {
                         ..LawSettings::default()
                     };
                     let mut law =
-                        build_law("id-lean", model.clone(), feet.clone(), &settings).unwrap();
+                        build_law("min-torque-id", model.clone(), feet.clone(), &settings).unwrap();
                     let zero = DVector::zeros(nv);
                     let mut tau = vec![0.0; model.n_joints()];
                     law.compute(

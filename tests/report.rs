@@ -228,15 +228,15 @@ fn small_run(floor: f64) -> (RunDir, Vec<C<'static>>) {
     // (μ, controller, per-seed slip)
     let slips: [(f64, &str, [f64; 3]); 6] = [
         (0.4, "stiff-pd", [1.0, 2.0, 4.0]),
-        (0.4, "id-grip", [2.0, 2.5, 3.0]),
-        (0.4, "cone-margin", [5.0, 6.0, 7.0]),
+        (0.4, "force-cost-id", [2.0, 2.5, 3.0]),
+        (0.4, "cone-program", [5.0, 6.0, 7.0]),
         (0.9, "stiff-pd", [1.0, 1.0, 1.0]),
-        (0.9, "id-grip", [1.5, 1.5, 1.5]),
-        (0.9, "cone-margin", [9.0, 3.0, 3.2]),
+        (0.9, "force-cost-id", [1.5, 1.5, 1.5]),
+        (0.9, "cone-program", [9.0, 3.0, 3.2]),
     ];
     for (mu, ctrl, values) in slips {
         for (seed, slip) in values.into_iter().enumerate() {
-            let fell = mu == 0.9 && ctrl == "cone-margin" && seed == 0;
+            let fell = mu == 0.9 && ctrl == "cone-program" && seed == 0;
             cells.push(C {
                 slope: 5.0,
                 mu,
@@ -267,13 +267,16 @@ fn report_small_run_numbers_and_floor_rule() {
     let text = run.read("cells.csv");
     let mut lines: Vec<String> = text.lines().map(str::to_string).collect();
     let mut f: Vec<String> = lines[4].split(',').map(str::to_string).collect();
-    f[15] = "NaN".to_string(); // slip_max_mm of id-grip, μ 0.4, seed 0
+    f[15] = "NaN".to_string(); // slip_max_mm of force-cost-id, μ 0.4, seed 0
     lines[4] = f.join(",");
     run.write("cells.csv", &(lines.join("\n") + "\n"));
 
     let summary = write_report(run.path()).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!(summary.cells, 18);
-    assert_eq!(summary.controllers, ["stiff-pd", "id-grip", "cone-margin"]);
+    assert_eq!(
+        summary.controllers,
+        ["stiff-pd", "force-cost-id", "cone-program"]
+    );
     check_outputs(
         &run,
         &summary,
@@ -294,13 +297,13 @@ fn report_small_run_numbers_and_floor_rule() {
     assert_eq!(expected, "2.33 ± 3.79");
     let r = md_row(&md, "### Slope 5°", "0.4");
     assert!(r.contains(&format!("**{expected}**")), "{r}");
-    // id-grip 2.5 is 0.167 above: within the 0.2 floor → tied, both bold; cone-margin (6.0)
+    // force-cost-id 2.5 is 0.167 above: within the 0.2 floor → tied, both bold; cone-program (6.0)
     // is 3.7 above → not tied.
     assert!(r.contains("**2.50 ± 1.24**"), "{r}");
-    assert!(r.contains("tie: stiff-pd, id-grip"), "{r}");
+    assert!(r.contains("tie: stiff-pd, force-cost-id"), "{r}");
     assert!(r.contains("6.00 ± 2.48") && !r.contains("**6.00"), "{r}");
-    // μ 0.9: id-grip is 0.5 above stiff-pd (more than the floor) → stiff-pd alone; the
-    // cone-margin fall is left out of its mean (two seeds → no interval) and counted.
+    // μ 0.9: force-cost-id is 0.5 above stiff-pd (more than the floor) → stiff-pd alone; the
+    // cone-program fall is left out of its mean (two seeds → no interval) and counted.
     let r = md_row(&md, "### Slope 5°", "0.9");
     assert!(r.contains("**1.00 ± 0.00**"), "{r}");
     assert!(r.contains("| 1.50 ± 0.00 |"), "{r}");
@@ -309,17 +312,17 @@ fn report_small_run_numbers_and_floor_rule() {
     assert!(r.contains("3.10 (n=2) · 1 fell"), "{r}");
     // ...and a law that fell in the row is not ranked there, whatever its mean.
     assert!(
-        r.contains("· not ranked (not every run ok): cone-margin"),
+        r.contains("· not ranked (not every run ok): cone-program"),
         "{r}"
     );
 
     // Outcomes: the fall is counted, and its quoted message (with a comma) survives whole.
-    let r = md_row(&md, "## Run outcomes", "cone-margin");
+    let r = md_row(&md, "## Run outcomes", "cone-program");
     assert!(
-        r.starts_with("| cone-margin | 6 | 5 | 0 | 0 | 1 | 0 | 0 | 1 (17 %) |"),
+        r.starts_with("| cone-program | 6 | 5 | 0 | 0 | 1 | 0 | 0 | 1 (17 %) |"),
         "{r}"
     );
-    assert!(md.contains("1 × `fell` cone-margin: trunk low, tilt 48 deg at t=3.5 s"));
+    assert!(md.contains("1 × `fell` cone-program: trunk low, tilt 48 deg at t=3.5 s"));
 
     // Single rate and actuator: the plots are skipped and the summary says so.
     assert!(md.contains("single control rate (1000 Hz)"));
@@ -363,19 +366,19 @@ fn report_small_run_numbers_and_floor_rule() {
         &[
             ("table", "slip_by_friction"),
             ("mu", "0.9"),
-            ("controller", "cone-margin"),
+            ("controller", "cone-program"),
         ],
     );
     assert_eq!(csv_field(&csv_text, &r, "fell"), "1");
     assert_eq!(csv_field(&csv_text, &r, "ci95_half"), "");
     assert_eq!(csv_field(&csv_text, &r, "mark"), "unranked");
-    // NaN left out of slip_max only: id-grip's slip_max mean covers 8 of its 9 values... per
+    // NaN left out of slip_max only: force-cost-id's slip_max mean covers 8 of its 9 values... per
     // seed: seed 0 has only its μ 0.9 cell (1.5 · 2.5 = 3.75).
     let r = csv_row(
         &csv_text,
         &[
             ("table", "per_controller"),
-            ("controller", "id-grip"),
+            ("controller", "force-cost-id"),
             ("metric", "slip_max_mm"),
         ],
     );
@@ -386,7 +389,7 @@ fn report_small_run_numbers_and_floor_rule() {
 
     // SVGs carry the controller names and the axis labels with units.
     let svg = run.read("plots/slip_vs_friction.svg");
-    for name in ["stiff-pd", "id-grip", "cone-margin", "slope 5°"] {
+    for name in ["stiff-pd", "force-cost-id", "cone-program", "slope 5°"] {
         assert!(svg.contains(name), "slip plot lacks {name}");
     }
     assert!(svg.contains("static friction coefficient μ"));
@@ -396,13 +399,13 @@ fn report_small_run_numbers_and_floor_rule() {
     assert!(svg.contains("base position error, RMS (mm)"));
 
     // "Where each law wins": generated from the same verdicts. Only one condition has a winner
-    // (μ 0.9, where cone-margin fell and is not ranked); μ 0.4 is a tie.
+    // (μ 0.9, where cone-program fell and is not ranked); μ 0.4 is a tie.
     assert!(
         md.contains("Of 2 conditions, 1 had a winner, 1 a tie"),
         "{md}"
     );
     assert!(md.contains("- **stiff-pd** had the lowest slip by more than the floor in 1 of its 2 conditions and tied for lowest in 1 more."));
-    assert!(md.contains("- **cone-margin** never had the lowest slip"));
+    assert!(md.contains("- **cone-program** never had the lowest slip"));
     assert!(md.contains("**Where stiff PD does well.** `stiff-pd`"));
 }
 
@@ -414,7 +417,9 @@ fn report_floor_decides_tie_or_winner() {
     let md = run.read("summary.md");
     let r = md_row(&md, "### Slope 5°", "0.9");
     assert!(
-        r.contains("tie: stiff-pd, id-grip (within 0.600 mm or not shown by the paired test)"),
+        r.contains(
+            "tie: stiff-pd, force-cost-id (within 0.600 mm or not shown by the paired test)"
+        ),
         "{r}"
     );
     assert!(r.contains("**1.50 ± 0.00**"), "{r}");
@@ -425,7 +430,7 @@ fn report_floor_decides_tie_or_winner() {
     write_report(run.path()).unwrap_or_else(|e| panic!("{e}"));
     let md = run.read("summary.md");
     let r = md_row(&md, "### Slope 5°", "0.4");
-    assert!(r.contains("tie: stiff-pd, id-grip"), "{r}");
+    assert!(r.contains("tie: stiff-pd, force-cost-id"), "{r}");
     let r = md_row(&md, "### Slope 5°", "0.9");
     assert!(r.contains("stiff-pd (by 0.500 mm)"), "{r}");
 }
@@ -434,7 +439,7 @@ fn report_floor_decides_tie_or_winner() {
 #[test]
 fn report_full_run_all_figures() {
     let run = RunDir::new("full");
-    let ctrls = ["stiff-pd", "id-lean", "id-grip-load"];
+    let ctrls = ["stiff-pd", "min-torque-id", "force-cost-id-load"];
     let actuators = ["ideal", "open-current", "torque-loop"];
     let mut cells = Vec::new();
     for slope in [0.0, 15.0] {
@@ -529,7 +534,7 @@ fn report_full_run_all_figures() {
     // actuators), so those conditions leave its rate comparison at both rates.
     assert!(
         md.contains(
-            "Conditions compared: stiff-pd 15 of 18, id-lean 18 of 18, id-grip-load 18 of 18."
+            "Conditions compared: stiff-pd 15 of 18, min-torque-id 18 of 18, force-cost-id-load 18 of 18."
         ),
         "{md}"
     );
@@ -541,12 +546,12 @@ fn report_full_run_all_figures() {
     let r = md_row(&md, "### Slope 15°", "0.3");
     assert!(r.contains("| 4.29 ± 0.12 · 9 fell |"), "{r}");
     assert!(
-        r.contains("id-grip-load (by 2.65 mm) · not ranked (not every run ok): stiff-pd"),
+        r.contains("force-cost-id-load (by 2.65 mm) · not ranked (not every run ok): stiff-pd"),
         "{r}"
     );
-    // The onset table: the steepest law per μ (id-grip-load at 0.9 of the limit).
+    // The onset table: the steepest law per μ (force-cost-id-load at 0.9 of the limit).
     let r = md_row(&md, "### 1000 Hz, ideal", "0.6");
-    assert!(r.ends_with("| id-grip-load |"), "{r}");
+    assert!(r.ends_with("| force-cost-id-load |"), "{r}");
     // Where each law wins names conditions and the stiff-PD sentence is generated.
     assert!(md.contains("By control rate, the law with the lowest slip (or a tie) most often"));
     assert!(
@@ -556,8 +561,8 @@ fn report_full_run_all_figures() {
     let svg = run.read("plots/rate_study.svg");
     for t in [
         "stiff-pd",
-        "id-lean",
-        "id-grip-load",
+        "min-torque-id",
+        "force-cost-id-load",
         "100 Hz",
         "1000 Hz",
         "controller",
@@ -592,7 +597,7 @@ fn report_full_run_all_figures() {
 fn report_log_axis_and_single_friction() {
     let run = RunDir::new("log");
     let mut cells = Vec::new();
-    for (ctrl, slip) in [("stiff-pd", 0.02), ("cone-margin", 40.0)] {
+    for (ctrl, slip) in [("stiff-pd", 0.02), ("cone-program", 40.0)] {
         for seed in 0..2 {
             cells.push(C {
                 slope: 10.0,
@@ -734,28 +739,28 @@ fn report_grid_layout_and_every_status() {
     let run = RunDir::new("grid");
     let ctrls = [
         "stiff-pd",
-        "id-lean",
-        "id-grip",
-        "id-grip-load",
-        "cone-margin",
+        "min-torque-id",
+        "force-cost-id",
+        "force-cost-id-load",
+        "cone-program",
     ];
     let mut cells = Vec::new();
     for slope in [0.0, 5.0, 10.0, 15.0, 20.0] {
         for mu in [0.5, 1.0] {
             for (ci, ctrl) in ctrls.iter().enumerate() {
                 let (status, message, slip) = match (slope as u32, mu == 0.5, *ctrl) {
-                    (20, true, "cone-margin") => (
+                    (20, true, "cone-program") => (
                         "infeasible",
                         "cone program infeasible; closest command",
                         2.5,
                     ),
-                    (20, true, "id-lean") => ("diverged", "non-finite state", f64::NAN),
+                    (20, true, "min-torque-id") => ("diverged", "non-finite state", f64::NAN),
                     (15, true, "stiff-pd") => (
                         "no-control",
                         "did not control the robot: at a torque limit 99 % of the time",
                         0.5,
                     ),
-                    (20, false, "id-grip") => ("error", "solver said \"no\", twice", 1.0),
+                    (20, false, "force-cost-id") => ("error", "solver said \"no\", twice", 1.0),
                     _ => ("ok", "", 1.0 + slope / 10.0 + 0.3 * ci as f64),
                 };
                 cells.push(C {
@@ -794,14 +799,17 @@ fn report_grid_layout_and_every_status() {
     let r = md_row(&md, "### Slope 20°", "0.5");
     assert!(r.contains("| — · 1 infeasible |"), "{r}");
     assert!(r.contains("| — · 1 fell |"), "{r}");
-    assert!(r.contains("tie: stiff-pd, id-grip, id-grip-load"), "{r}");
-    assert!(!r.contains("cone-margin ("), "{r}");
+    assert!(
+        r.contains("tie: stiff-pd, force-cost-id, force-cost-id-load"),
+        "{r}"
+    );
+    assert!(!r.contains("cone-program ("), "{r}");
     let r = md_row(&md, "### Slope 15°", "0.5");
     assert!(r.starts_with("| 0.5 | — · 1 no-control |"), "{r}");
     assert!(!r.contains("stiff-pd ("), "{r}");
-    let r = md_row(&md, "## Run outcomes", "id-lean");
+    let r = md_row(&md, "## Run outcomes", "min-torque-id");
     assert!(
-        r.starts_with("| id-lean | 10 | 9 | 0 | 0 | 0 | 1 | 0 | 1 (10 %) |"),
+        r.starts_with("| min-torque-id | 10 | 9 | 0 | 0 | 0 | 1 | 0 | 1 (10 %) |"),
         "{r}"
     );
     let r = md_row(&md, "## Run outcomes", "stiff-pd");
@@ -809,18 +817,18 @@ fn report_grid_layout_and_every_status() {
         r.starts_with("| stiff-pd | 10 | 9 | 0 | 1 | 0 | 0 | 0 | 0 (0 %) |"),
         "{r}"
     );
-    let r = md_row(&md, "## Run outcomes", "id-grip");
+    let r = md_row(&md, "## Run outcomes", "force-cost-id");
     assert!(
-        r.starts_with("| id-grip | 10 | 9 | 0 | 0 | 0 | 0 | 1 | 0 (0 %) |"),
+        r.starts_with("| force-cost-id | 10 | 9 | 0 | 0 | 0 | 0 | 1 | 0 (0 %) |"),
         "{r}"
     );
     assert!(
-        md.contains("1 × `error` id-grip: solver said \"no\", twice"),
+        md.contains("1 × `error` force-cost-id: solver said \"no\", twice"),
         "{md}"
     );
-    let r = md_row(&md, "## Run outcomes", "cone-margin");
+    let r = md_row(&md, "## Run outcomes", "cone-program");
     assert!(
-        r.starts_with("| cone-margin | 10 | 9 | 1 | 0 | 0 | 0 | 0 | 0 (0 %) |"),
+        r.starts_with("| cone-program | 10 | 9 | 1 | 0 | 0 | 0 | 0 | 0 (0 %) |"),
         "{r}"
     );
     let r = md_row(&md, "### Slope 20°", "1");
@@ -833,7 +841,7 @@ fn report_line_breaks_where_no_run_held() {
     let run = RunDir::new("gap");
     let mut cells = Vec::new();
     for mu in [0.3, 0.6, 1.0] {
-        for ctrl in ["stiff-pd", "id-grip"] {
+        for ctrl in ["stiff-pd", "force-cost-id"] {
             let fell = ctrl == "stiff-pd" && mu == 0.6;
             cells.push(C {
                 slope: 10.0,
@@ -873,7 +881,7 @@ fn report_line_breaks_where_no_run_held() {
     };
     // stiff-pd (first colour): legend key only, its two points are not joined across μ 0.6.
     assert_eq!(count("#1D5C7E"), 1);
-    // id-grip (second colour): legend key and one line through all three μ.
+    // force-cost-id (second colour): legend key and one line through all three μ.
     assert_eq!(count("#C4573A"), 2);
 }
 
@@ -887,13 +895,13 @@ fn report_outcome_map_and_plan_limit() {
     // (slope, μ, controller, status): 10° needs μ ≥ 0.25 here; 20° cannot be planned at all.
     let rows = [
         (10.0, 0.2, "stiff-pd", "ok"),
-        (10.0, 0.2, "id-grip", "fell"),
+        (10.0, 0.2, "force-cost-id", "fell"),
         (10.0, 0.6, "stiff-pd", "infeasible"),
-        (10.0, 0.6, "id-grip", "ok"),
+        (10.0, 0.6, "force-cost-id", "ok"),
         (20.0, 0.6, "stiff-pd", "ok"),
-        (20.0, 0.6, "id-grip", "error"),
+        (20.0, 0.6, "force-cost-id", "error"),
         (10.0, 0.2, "stiff-pd", "ok"),
-        (10.0, 0.6, "id-grip", "ok"),
+        (10.0, 0.6, "force-cost-id", "ok"),
     ];
     for (i, (slope, mu, controller, status)) in rows.into_iter().enumerate() {
         cells.push(C {

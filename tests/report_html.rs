@@ -83,7 +83,7 @@ fn replay_feet_equal_trace_csv() {
         pick: vec![
             "slope_deg=10".into(),
             "mu=0.3".into(),
-            "controller=id-grip-load".into(),
+            "controller=force-cost-id-load".into(),
         ],
         out: csv_path.clone(),
         every: 25,
@@ -191,10 +191,10 @@ fn report_html_default_study_shape_within_budget() {
     let dir = TempDir::new("report");
     let ctrls = [
         "stiff-pd",
-        "id-lean",
-        "id-grip",
-        "id-grip-load",
-        "cone-margin",
+        "min-torque-id",
+        "force-cost-id",
+        "force-cost-id-load",
+        "cone-program",
     ];
     let mut csv_text = format!("{HEADER}\n");
     let mut index = 0u64;
@@ -285,7 +285,7 @@ stiff-pd,1000,ideal,1.5,upper,0.75,15000,22.5,,,,,3.1,0.02,0,0.5,9,margin 2,abc1
     // Axes with one value in the scenario (mass scale, CoM shift, noise, seed) are left out.
     assert!(
         static_part.contains(
-            "gripsweep trace --pick slope_deg=25 --pick mu=0.2 --pick rate_hz=100 --pick actuator=ideal --pick controller=cone-margin --out replay-"
+            "gripsweep trace --pick slope_deg=25 --pick mu=0.2 --pick rate_hz=100 --pick actuator=ideal --pick controller=cone-program --out replay-"
         ),
         "trace command in {}",
         &static_part[static_part.find("gripsweep trace").unwrap_or(0)..][..300]

@@ -748,7 +748,7 @@ fn the_scenario_parser_never_panics_on_arbitrary_input() {
         "\"\"",
         "\"ideal\"",
         "\"stiff-pd\"",
-        "\"id-grip-load\"",
+        "\"force-cost-id-load\"",
         "\"torque-loop\"",
         "\"\\u00e9\\u4e2d\"",
     ];

@@ -39,7 +39,7 @@ robot = "robots/brindle.toml"
 duration = 4.0
 [axes]
 rate_hz = [250.0, 1000.0]
-controller = ["stiff-pd", "id-lean"]
+controller = ["stiff-pd", "min-torque-id"]
 "#,
     );
     let robot = s.load_robot().unwrap();
@@ -138,7 +138,7 @@ robot = "robots/{robot}.toml"
 duration = 3.0
 [axes]
 rate_hz = [1000.0]
-controller = ["stiff-pd", "id-grip-load"]
+controller = ["stiff-pd", "force-cost-id-load"]
 "#
         )
     };
@@ -172,7 +172,7 @@ controller = [{laws}]
         )
     };
     let a = scenario(&text(r#""stiff-pd""#));
-    let b = scenario(&text(r#""id-lean", "cone-margin""#));
+    let b = scenario(&text(r#""min-torque-id", "cone-program""#));
     let robot = a.load_robot().unwrap();
     let (fa, fb) = (slip_floor(&a, &robot), slip_floor(&b, &robot));
     assert!(fa.is_finite() && fa < FLOOR_BOUND_MM);
@@ -188,11 +188,11 @@ duration = 3.0
 [laws.stiff-pd]
 kp = 5000
 kd = 12.5
-[laws.id-lean.at_rate.250]
+[laws.min-torque-id.at_rate.250]
 joint_kd = 0.75
 [axes]
 rate_hz = [250.0]
-controller = ["stiff-pd", "id-lean"]
+controller = ["stiff-pd", "min-torque-id"]
 "#,
     );
     let robot = s.load_robot().unwrap();
@@ -203,12 +203,12 @@ controller = ["stiff-pd", "id-lean"]
     assert_eq!((pd.stiff_kp, pd.stiff_kd), (5000.0, 12.5));
     let pd_row = row(&table, "stiff-pd", 250.0, ActuatorKind::Ideal);
     assert_eq!((pd_row.bound.as_str(), pd_row.trials), ("pinned", 0));
-    // id-lean pins a gain at 250 Hz, so it is not tuned there either; its other gains are the
+    // min-torque-id pins a gain at 250 Hz, so it is not tuned there either; its other gains are the
     // defaults and the pinned one is exact.
-    let lean = run.law_settings_for("id-lean", 250.0, ActuatorKind::Ideal);
+    let lean = run.law_settings_for("min-torque-id", 250.0, ActuatorKind::Ideal);
     assert_eq!(lean.joint_kd, 0.75);
     assert_eq!(lean.joint_kp, s.laws.joint_kp);
-    // Without pins, id-lean is tuned (its scale is the tuner's, not 1).
+    // Without pins, min-torque-id is tuned (its scale is the tuner's, not 1).
     let free = scenario(
         r#"name = "t"
 robot = "robots/brindle.toml"
@@ -218,11 +218,11 @@ kp = 5000
 kd = 12.5
 [axes]
 rate_hz = [250.0]
-controller = ["stiff-pd", "id-lean"]
+controller = ["stiff-pd", "min-torque-id"]
 "#,
     );
     let t2 = tune(&free, &robot, None).unwrap();
-    let lean_row = row(&t2, "id-lean", 250.0, ActuatorKind::Ideal);
+    let lean_row = row(&t2, "min-torque-id", 250.0, ActuatorKind::Ideal);
     assert!(lean_row.trials > 0 && lean_row.bound != "pinned");
     assert_eq!(
         row(&t2, "stiff-pd", 250.0, ActuatorKind::Ideal)

@@ -98,44 +98,64 @@ pub fn solve_upper_transposed(r: &DMatrix<f64>, n: usize, b: &mut [f64]) {
 }
 
 /// Cholesky factorization in place of the top-left n × n block (lower triangle L with
-/// A = L Lᵀ written over it). Returns false if the block is not positive definite.
+/// A = L Lᵀ written over it). Returns false if the block is not positive definite. Works on
+/// contiguous column slices (column-major; Golub & Van Loan alg. 4.2.2, the gaxpy form by
+/// columns), skipping zero multipliers, so a block-diagonal matrix costs its blocks.
 pub fn cholesky_in_place(a: &mut DMatrix<f64>, n: usize) -> bool {
+    let ld = a.nrows();
+    let a = a.as_mut_slice();
     for j in 0..n {
-        let mut d = a[(j, j)];
+        // Column j −= Σ_{k<j} L[j,k] · column k (rows j..n).
         for k in 0..j {
-            d -= a[(j, k)] * a[(j, k)];
+            let ljk = a[k * ld + j];
+            if ljk != 0.0 {
+                let (head, tail) = a.split_at_mut(j * ld);
+                let ck = &head[k * ld + j..k * ld + n];
+                let cj = &mut tail[j..n];
+                cj.iter_mut().zip(ck).for_each(|(y, x)| *y -= ljk * x);
+            }
         }
+        let d = a[j * ld + j];
         if d <= 0.0 || !d.is_finite() {
             return false;
         }
         let d = d.sqrt();
-        a[(j, j)] = d;
-        for i in j + 1..n {
-            let mut s = a[(i, j)];
-            for k in 0..j {
-                s -= a[(i, k)] * a[(j, k)];
-            }
-            a[(i, j)] = s / d;
-        }
+        let inv = 1.0 / d;
+        let cj = &mut a[j * ld + j..j * ld + n];
+        cj[0] = d;
+        cj[1..].iter_mut().for_each(|x| *x *= inv);
     }
     true
 }
 
-/// Solve L Lᵀ x = b in place with the factor from [`cholesky_in_place`].
+/// The smallest diagonal entry of a Cholesky factor's top-left n × n block (the smallest |R_jj|
+/// of the QR of the factored matrix's square root, for rank checks); ∞ for n = 0.
+pub fn min_pivot(l: &DMatrix<f64>, n: usize) -> f64 {
+    (0..n).map(|i| l[(i, i)]).fold(f64::INFINITY, f64::min)
+}
+
+/// Solve L Lᵀ x = b in place with the factor from [`cholesky_in_place`] (column slices; zero
+/// entries of the factor cost nothing).
 pub fn cholesky_solve(l: &DMatrix<f64>, n: usize, b: &mut [f64]) {
-    for i in 0..n {
-        let mut s = b[i];
-        for k in 0..i {
-            s -= l[(i, k)] * b[k];
+    let ld = l.nrows();
+    let l = l.as_slice();
+    // L y = b by columns.
+    for j in 0..n {
+        let cj = &l[j * ld + j..j * ld + n];
+        let yj = b[j] / cj[0];
+        b[j] = yj;
+        if yj != 0.0 {
+            b[j + 1..n]
+                .iter_mut()
+                .zip(&cj[1..])
+                .for_each(|(y, x)| *y -= yj * x);
         }
-        b[i] = s / l[(i, i)];
     }
+    // Lᵀ x = y: row i of Lᵀ is column i of L.
     for i in (0..n).rev() {
-        let mut s = b[i];
-        for k in i + 1..n {
-            s -= l[(k, i)] * b[k];
-        }
-        b[i] = s / l[(i, i)];
+        let ci = &l[i * ld + i..i * ld + n];
+        let s: f64 = b[i + 1..n].iter().zip(&ci[1..]).map(|(x, y)| x * y).sum();
+        b[i] = (b[i] - s) / ci[0];
     }
 }
 

@@ -67,7 +67,7 @@ pub struct CheckArgs {
 pub struct TraceArgs {
     /// Scenario file (TOML). Default: the embedded default scenario.
     pub scenario: Option<PathBuf>,
-    /// Axis values of the cell to trace, e.g. --pick mu=0.4 --pick controller=id-lean; axes not
+    /// Axis values of the cell to trace, e.g. --pick mu=0.4 --pick controller=min-torque-id; axes not
     /// given take their first value. Axes: slope_deg, mu, rate_hz, actuator, controller,
     /// mass_scale, com_shift_mm, sensor_noise, seed.
     #[arg(long, value_name = "AXIS=VALUE")]
@@ -324,7 +324,14 @@ pub fn pick_cell(s: &Scenario, picks: &[String]) -> Result<Cell, RunError> {
                 names.join(", ")
             )));
         }
-        want.push((k.trim().to_string(), v.trim().to_string()));
+        let (k, mut v) = (k.trim().to_string(), v.trim().to_string());
+        if k == "controller"
+            && let Some(c) = gripsweep_controllers::laws::registry::resolve(&v)
+        {
+            // A former law name picks the law under its current name (with a notice).
+            v = c;
+        }
+        want.push((k, v));
     }
     let matches = |c: &Cell| {
         want.iter().all(|(k, v)| {

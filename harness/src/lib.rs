@@ -2,6 +2,7 @@
 //! to evidence. `main.rs` is a thin shell over this library.
 
 pub mod cell;
+pub mod cli;
 pub mod cli_robot;
 pub mod cli_run;
 pub mod floor;
@@ -26,3 +27,8 @@ pub use gripsweep_controllers as controllers;
 
 #[cfg(test)]
 mod axis_table_tests;
+/// The law registry and what a law of your own needs (README, "Bringing your own controller").
+pub use gripsweep_controllers::laws::{
+    ControlLaw, FieldKind, LawEntry, LawField, LawSettings, LawStatus, Observation, Registry,
+    Target,
+};

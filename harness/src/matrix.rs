@@ -204,7 +204,7 @@ mod tests {
                 mu.into(),
                 1000.0.into(),
                 "ideal".into(),
-                "id-lean".into(),
+                "min-torque-id".into(),
                 1.0.into(),
                 0.0.into(),
                 0.0.into(),

@@ -311,7 +311,13 @@ pub fn check_rows(
 /// checked without the scenario's files.
 pub fn cells_of_manifest(m: &crate::run_format::Manifest) -> Result<Vec<Cell>, String> {
     // The names are checked against what this build knows (a manifest is a file).
-    let laws = gripsweep_controllers::laws::law_names();
+    // Registered laws, and the piped laws the run declared (their programs are inputs,
+    // `external.<name>`).
+    let registered = gripsweep_controllers::laws::law_names();
+    let mut laws: Vec<&str> = registered.iter().map(String::as_str).collect();
+    if let Some(inputs) = m.inputs.as_object() {
+        laws.extend(inputs.keys().filter_map(|k| k.strip_prefix("external.")));
+    }
     let actuators: Vec<&str> = crate::plant::actuator::ActuatorKind::ALL
         .iter()
         .map(|k| k.name())

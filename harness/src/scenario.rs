@@ -12,7 +12,7 @@ use crate::plant::PlantSettings;
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
 use crate::run_format::{AXES, AxisContext, AxisKind, AxisValue, axis};
-use gripsweep_controllers::laws::{LawSettings, law_names};
+use gripsweep_controllers::laws::{LawField, LawSettings, law_names, registry};
 use serde::Deserialize;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -129,80 +129,16 @@ pub struct PlantFile {
 /// with the law's own allowed fields.
 pub type LawsFile = toml::Table;
 
-/// The fields `[laws.<name>]` accepts for a law: (field, is a feedback gain, may be zero).
-pub fn law_fields(law: &str) -> &'static [(&'static str, bool, bool)] {
-    const STIFF: &[(&str, bool, bool)] = &[("kp", true, false), ("kd", true, true)];
-    const LEAN: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-    ];
-    const GRIP: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-        ("tangent_weight", false, false),
-        ("normal_weight", false, true),
-        ("torque_weight", false, false),
-    ];
-    const GRIP_LOAD: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-        ("tangent_weight", false, false),
-        ("normal_weight", false, true),
-        ("torque_weight", false, false),
-        ("load_floor_share", false, false),
-    ];
-    const CONE: &[(&str, bool, bool)] = &[
-        ("task_kp", true, true),
-        ("task_kd", true, true),
-        ("joint_kp", true, true),
-        ("joint_kd", true, true),
-        ("tangent_weight", false, false),
-        ("normal_weight", false, true),
-        ("torque_weight", false, false),
-        ("load_floor_share", false, false),
-        ("cone_margin", false, true),
-        ("min_normal_force", false, true),
-    ];
-    match law {
-        "stiff-pd" => STIFF,
-        "id-lean" => LEAN,
-        "id-grip" => GRIP,
-        "id-grip-load" => GRIP_LOAD,
-        "cone-margin" => CONE,
-        _ => &[],
-    }
+/// The fields `[laws.<name>]` accepts for a law, as the law registry declares them (empty for
+/// an unknown law).
+pub fn law_fields(law: &str) -> Vec<LawField> {
+    registry::with(|r| r.get(law).map(|e| e.fields.clone()).unwrap_or_default())
 }
 
 /// Set one validated `[laws.<name>]` field on a law's settings.
-fn apply_law_field(law: &str, set: &mut LawSettings, field: &str, v: f64) {
-    match (law, field) {
-        ("stiff-pd", "kp") => set.stiff_kp = v,
-        ("stiff-pd", "kd") => set.stiff_kd = v,
-        (_, "task_kp") => {
-            set.base_kp = v;
-            set.orient_kp = v;
-            set.posture_kp = v;
-        }
-        (_, "task_kd") => {
-            set.base_kd = v;
-            set.orient_kd = v;
-            set.posture_kd = v;
-        }
-        (_, "joint_kp") => set.joint_kp = v,
-        (_, "joint_kd") => set.joint_kd = v,
-        (_, "tangent_weight") => set.tangent_weight = v,
-        (_, "normal_weight") => set.normal_weight = v,
-        (_, "torque_weight") => set.torque_weight = v,
-        (_, "load_floor_share") => set.load_floor_share = v,
-        (_, "cone_margin") => set.cone_margin = v,
-        (_, "min_normal_force") => set.min_normal_force = v,
-        _ => {}
+fn apply_law_field(fields: &[LawField], set: &mut LawSettings, field: &str, v: f64) {
+    if let Some(f) = fields.iter().find(|f| f.name == field) {
+        f.apply(set, v);
     }
 }
 
@@ -540,18 +476,44 @@ impl Scenario {
         let external = crate::pipe_law::parse_external(
             &file.external,
             dir.unwrap_or(Path::new(".")),
-            &law_names(),
+            &law_names().iter().map(String::as_str).collect::<Vec<_>>(),
         )
         .map_err(|(field, msg)| fail(&field, msg))?;
-        let mut law_list = law_names();
+        let registered = law_names();
+        let mut law_list: Vec<&str> = registered.iter().map(String::as_str).collect();
         law_list.extend(external.iter().map(|e| e.name));
+        // Former law names are accepted (with a notice) and stand for the law's current name;
+        // a name neither registered nor declared says how to bring one.
+        let mut axes_table = file.axes.clone();
+        if let Some(toml::Value::Array(items)) = axes_table.get_mut("controller") {
+            for item in items.iter_mut() {
+                let toml::Value::String(c) = item else {
+                    continue;
+                };
+                if external.iter().any(|e| e.name == c.as_str()) {
+                    continue;
+                }
+                match registry::resolve(c) {
+                    Some(canonical) => *c = canonical,
+                    None => {
+                        return Err(fail(
+                            "axes.controller",
+                            format!(
+                                "{} (a program of your own in another language: declare it in an [external.<name>] table)",
+                                registry::with(|r| r.unknown(c))
+                            ),
+                        ));
+                    }
+                }
+            }
+        }
         let actuator_list: Vec<&str> = ActuatorKind::ALL.iter().map(|k| k.name()).collect();
         let axis_ctx = AxisContext {
             plant_rate_hz: 1.0 / plant.dt,
             laws: &law_list,
             actuators: &actuator_list,
         };
-        let axes = parse_axes(&file.axes, &axis_ctx).map_err(|(field, msg)| fail(&field, msg))?;
+        let axes = parse_axes(&axes_table, &axis_ctx).map_err(|(field, msg)| fail(&field, msg))?;
         let rate_hz = axes.numbers("rate_hz");
         let controller = axes.names("controller");
         // The shortest cell: control steps at the slowest rate and stance phases to average.
@@ -912,6 +874,11 @@ fn parse_law_tables(
     };
     let names = law_names();
     for (key, value) in table {
+        // A former law name stands for the law's current name (with a notice).
+        let key = &match registry::resolve(key) {
+            Some(c) if names.contains(&c) => c,
+            _ => key.clone(),
+        };
         if key == "mu_estimate_scale" {
             let v = number("laws.mu_estimate_scale", value)?;
             if !(v.is_finite() && v > 0.0) {
@@ -924,11 +891,11 @@ fn parse_law_tables(
             continue;
         }
         let field = format!("laws.{key}");
-        if !names.contains(&key.as_str()) {
+        if !names.contains(key) {
             return Err((
                 field,
                 format!(
-                    "unknown field; allowed: mu_estimate_scale and one table per law: {}",
+                    "unknown field; allowed: mu_estimate_scale and one table per law: {} (a law of your own: README, \"Bringing your own controller\")",
                     names.join(", ")
                 ),
             ));
@@ -953,8 +920,8 @@ fn parse_law_tables(
                 if nested && f == "at_rate" {
                     continue;
                 }
-                let Some(&(_, _, zero_ok)) = allowed.iter().find(|(n, _, _)| n == f) else {
-                    let mut list: Vec<&str> = allowed.iter().map(|(n, _, _)| *n).collect();
+                let Some(decl) = allowed.iter().find(|d| &d.name == f) else {
+                    let mut list: Vec<&str> = allowed.iter().map(|d| d.name.as_str()).collect();
                     if nested {
                         list.push("at_rate");
                     }
@@ -964,19 +931,7 @@ fn parse_law_tables(
                     ));
                 };
                 let x = number(&fname, v)?;
-                let ok = x.is_finite() && (x > 0.0 || (zero_ok && x == 0.0));
-                if !ok {
-                    return Err((
-                        fname,
-                        format!(
-                            "{x}: allowed: a number {}",
-                            if zero_ok { "≥ 0" } else { "> 0" }
-                        ),
-                    ));
-                }
-                if *f == "cone_margin" && x >= 1.0 {
-                    return Err((fname, format!("{x}: allowed: 0 ≤ margin < 1")));
-                }
+                decl.check(x).map_err(|m| (fname.clone(), m))?;
                 fields.push((f.clone(), x));
             }
             Ok(fields)
@@ -1030,12 +985,15 @@ impl Scenario {
     /// A law's settings at a control rate before tuning: the defaults, then the law's
     /// `[laws.<name>]` fields, then its `at_rate` fields for this rate.
     pub fn law_base(&self, law: &str, rate_hz: f64) -> LawSettings {
-        let mut set = self.laws.clone();
+        let (mut set, fields) = registry::with(|r| match r.get(law) {
+            Some(e) => (e.with_defaults(&self.laws), e.fields.clone()),
+            None => (self.laws.clone(), Vec::new()),
+        });
         for pass_rate in [None, Some(rate_hz)] {
             for t in &self.law_tables {
                 if t.law == law && t.rate_hz == pass_rate {
                     for (f, v) in &t.fields {
-                        apply_law_field(law, &mut set, f, *v);
+                        apply_law_field(&fields, &mut set, f, *v);
                     }
                 }
             }
@@ -1050,10 +1008,11 @@ impl Scenario {
         if self.external_law(law).is_some() {
             return true;
         }
-        let gains: Vec<&str> = law_fields(law)
+        let fields = law_fields(law);
+        let gains: Vec<&str> = fields
             .iter()
-            .filter(|(_, g, _)| *g)
-            .map(|(n, _, _)| *n)
+            .filter(|d| d.kind.is_gain())
+            .map(|d| d.name.as_str())
             .collect();
         self.law_tables.iter().any(|t| {
             t.law == law

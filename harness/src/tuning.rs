@@ -36,7 +36,7 @@ use crate::planner::{Gait, Plan};
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
 use crate::scenario::{Scenario, gain_key};
-use gripsweep_controllers::laws::LawSettings;
+use gripsweep_controllers::laws::{FieldKind, LawSettings};
 use rayon::prelude::*;
 use sha2::{Digest, Sha256};
 use std::path::Path;
@@ -121,6 +121,16 @@ pub fn scaled(law: &str, base: &LawSettings, s: f64) -> LawSettings {
         out.posture_kd = base.posture_kd * r;
         out.joint_kp = base.joint_kp * s;
         out.joint_kd = base.joint_kd * r;
+    }
+    // A registered law's own gains, as its settings declare them.
+    for f in crate::scenario::law_fields(law) {
+        if let Some(v) = out.extra.get_mut(&f.name) {
+            match f.kind {
+                FieldKind::Stiffness => *v *= s,
+                FieldKind::Damping => *v *= r,
+                FieldKind::Other => {}
+            }
+        }
     }
     out
 }
@@ -208,14 +218,26 @@ pub fn tuning_inputs(s: &Scenario, robot: &LoadedRobot) -> Vec<(&'static str, St
 }
 
 /// The hash of one law's settings before tuning at one rate (its `[laws.<name>]` table).
-fn law_hash(s: &Scenario, law: &str, rate_hz: f64) -> String {
-    sha256_hex(&[law, &format!("{:?}", s.law_base(law, rate_hz))])
+fn law_hash(s: &Scenario, written: &str, law: &str, rate_hz: f64) -> String {
+    sha256_hex(&[written, &format!("{:?}", s.law_base(law, rate_hz))])
 }
 
 /// The `inputs_sha256` column of a row: the inputs' hashes (16 hex digits each) and the law's.
 fn row_digest(inputs: &[(&'static str, String)], s: &Scenario, law: &str, rate_hz: f64) -> String {
+    row_digest_named(inputs, s, law, law, rate_hz)
+}
+
+/// [`row_digest`] of a row that names the law `written` (a former name of `law` in a table
+/// written before the rename hashes that name).
+fn row_digest_named(
+    inputs: &[(&'static str, String)],
+    s: &Scenario,
+    written: &str,
+    law: &str,
+    rate_hz: f64,
+) -> String {
     let mut parts: Vec<String> = inputs.iter().map(|(_, h)| h[..16].to_string()).collect();
-    parts.push(law_hash(s, law, rate_hz)[..16].to_string());
+    parts.push(law_hash(s, written, law, rate_hz)[..16].to_string());
     parts.join("-")
 }
 
@@ -652,10 +674,13 @@ pub fn read_table(path: &Path, s: &Scenario, robot: &LoadedRobot) -> Result<Gain
                 )
             })
         };
-        let law = field("law").to_string();
+        let written = field("law").to_string();
+        // A former law name stands for its current name (with a notice).
+        let law = gripsweep_controllers::laws::registry::resolve(&written)
+            .unwrap_or_else(|| written.clone());
         let rate_hz = number("rate_hz")?;
         let theirs = field("inputs_sha256");
-        let ours = row_digest(&inputs, s, &law, rate_hz);
+        let ours = row_digest_named(&inputs, s, &written, &law, rate_hz);
         if theirs != ours {
             let parts: Vec<&str> = theirs.split('-').collect();
             let labels: Vec<String> = inputs

@@ -14,7 +14,7 @@ trap 'rm -rf "$WORK"' EXIT
 
 "$BIN" run "$ROOT/scenarios/quick.toml" --out "$WORK/quick" --quiet
 "$BIN" trace "$ROOT/scenarios/quick.toml" --pick slope_deg=10 --pick mu=0.3 \
-    --pick controller=id-grip-load --out "$WORK/replay.csv"
+    --pick controller=force-cost-id-load --out "$WORK/replay.csv"
 
 cd "$ROOT/tests/browser"
 PLAYWRIGHT_SKIP_BROWSER_DOWNLOAD=1 npm ci --no-audit --no-fund --silent

@@ -19,8 +19,8 @@
 //! w_f is the load-normalised tangential weight (tangential weight × f_ref / f̂_n, f̂_n the
 //! previous solution's normal load): the objective evens out the friction ratios exactly.
 
-use super::whole_body::WholeBody;
-use super::{ControlLaw, LawSettings, LawStatus, Observation, Target};
+use super::whole_body::{Distribution, WholeBody};
+use super::{ControlLaw, LawSettings, LawStatus};
 use crate::model::Model;
 use crate::spatial::{Mat3, Vec3};
 use clarabel::algebra::CscMatrix;
@@ -52,7 +52,7 @@ struct CachedSolver {
     a_pattern: Pattern,
 }
 
-pub struct ConeMargin {
+pub struct ConeProgram {
     pub body: WholeBody,
     solvers: Vec<CachedSolver>,
     /// Whether the last step's strict program was infeasible (then the relaxed one is tried
@@ -75,7 +75,8 @@ pub struct ConeMargin {
     settings_solver: DefaultSettings<f64>,
 }
 
-impl ConeMargin {
+impl ConeProgram {
+    pub const NAME: &'static str = "cone-program";
     pub fn new(model: Model, feet: Vec<usize>, settings: &LawSettings) -> Self {
         let nf = feet.len();
         let nv = model.nv();
@@ -91,7 +92,7 @@ impl ConeMargin {
             .tol_feas(1e-7)
             .build()
             .expect("valid solver settings");
-        ConeMargin {
+        ConeProgram {
             body,
             solvers: Vec::new(),
             last_infeasible: false,
@@ -415,7 +416,7 @@ impl ConeMargin {
         status
     }
 
-    /// Solve strict or relaxed (see [`ConeMargin::solve`]): the index of the cached solver that
+    /// Solve strict or relaxed (see [`ConeProgram::solve`]): the index of the cached solver that
     /// holds the answer and whether it is the relaxed program.
     fn choose(&mut self, limits: bool) -> Result<(usize, bool), LawStatus> {
         let k = self.body.k;
@@ -491,38 +492,24 @@ impl ConeMargin {
     }
 }
 
-impl ControlLaw for ConeMargin {
-    fn name(&self) -> &'static str {
-        "cone-margin"
+impl Distribution for ConeProgram {
+    fn name(&self) -> &str {
+        Self::NAME
     }
-    fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
-        if let Err(status) = self.body.prepare(obs, target) {
-            self.body.fallback(obs, target, tau);
-            return status;
-        }
-        let status = if 3 * self.body.k < 6 {
-            // No contact-force freedom: the consistent torque is unique.
-            let s = self.body.min_torque();
-            self.body.predict_forces();
-            s
-        } else {
-            self.solve()
-        };
-        if status == LawStatus::Failed {
-            // Solver trouble: the minimum-norm consistent torque, reported as failed.
-            if self.body.min_torque() != LawStatus::Failed {
-                self.body.predict_forces();
-                self.body.output_with_joint_pd(obs, target, tau);
-            } else {
-                self.body.fallback(obs, target, tau);
-            }
-            return LawStatus::Failed;
-        }
-        self.body.remember_loads(target.stance);
-        self.body.output_with_joint_pd(obs, target, tau);
-        status
+    fn body(&self) -> &WholeBody {
+        &self.body
     }
-    fn predicted_forces(&self) -> &[Vec3] {
-        &self.body.forces
+    fn body_mut(&mut self) -> &mut WholeBody {
+        &mut self.body
+    }
+    fn distribute(&mut self) -> LawStatus {
+        self.solve()
+    }
+    fn fills_forces(&self) -> bool {
+        true
+    }
+    /// Solver trouble: the minimum-norm consistent torque, reported as failed.
+    fn min_torque_on_failure(&self) -> bool {
+        true
     }
 }

@@ -1,16 +1,23 @@
 //! Control laws behind one small trait. Every law receives the same observation and the same
 //! planned reference and returns joint torques and a status; model-based laws also expose the
-//! contact forces they predict. A new law is one file here and one line in [`REGISTRY`].
+//! contact forces they predict. A built-in law is one file here and one entry in
+//! [`registry::Registry::builtin`]; a model-based law implements
+//! [`whole_body::Distribution`] (its force or torque distribution) and shares the rest of the
+//! control step. Laws from outside this repository register through [`registry`].
 
 pub mod cone_program;
-pub mod id_min_torque;
-pub mod id_tangent;
+pub mod force_cost_id;
+pub mod min_torque_id;
+pub mod registry;
 pub mod stiff_pd;
 pub mod whole_body;
+
+pub use registry::{FieldKind, LawBuilder, LawEntry, LawField, Registry};
 
 use crate::model::Model;
 use crate::spatial::Vec3;
 use nalgebra::DVector;
+use std::collections::BTreeMap;
 use std::fmt;
 
 /// What a law sees of the robot at a control step (model conventions, see [`crate::model`]).
@@ -61,8 +68,9 @@ impl fmt::Display for LawStatus {
 }
 
 /// Settings shared by the laws; each law reads the fields it needs. Defaults are stated on
-/// [`LawSettings::default`].
-#[derive(Clone, Debug, PartialEq)]
+/// [`LawSettings::default`]. A registered law's own `[laws.<name>]` fields are in
+/// [`LawSettings::extra`] (see [`LawSettings::field`]).
+#[derive(Clone, PartialEq)]
 pub struct LawSettings {
     /// Stiff joint PD (the model-free law): gains per joint, N·m/rad and N·m·s/rad.
     pub stiff_kp: f64,
@@ -97,6 +105,48 @@ pub struct LawSettings {
     /// each stance foot's contact at centre − radius · n, where the sphere touches the ground.
     /// 0 puts it at the foot frame (the sphere centre).
     pub foot_radius: f64,
+    /// A registered law's own settings fields by name (its declared defaults, then the
+    /// scenario's values); empty for the built-in laws.
+    pub extra: BTreeMap<String, f64>,
+}
+
+impl LawSettings {
+    /// A law's own settings field (declared with [`LawField::own`]); the harness fills every
+    /// declared field before building the law, so `None` means the name was not declared.
+    pub fn field(&self, name: &str) -> Option<f64> {
+        self.extra.get(name).copied()
+    }
+}
+
+/// The derived form, with `extra` only when a law has own fields (so the settings hashes that
+/// tuning tables carry stay what they were for the built-in laws).
+impl fmt::Debug for LawSettings {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let mut d = f.debug_struct("LawSettings");
+        d.field("stiff_kp", &self.stiff_kp)
+            .field("stiff_kd", &self.stiff_kd)
+            .field("joint_kp", &self.joint_kp)
+            .field("joint_kd", &self.joint_kd)
+            .field("base_kp", &self.base_kp)
+            .field("base_kd", &self.base_kd)
+            .field("orient_kp", &self.orient_kp)
+            .field("orient_kd", &self.orient_kd)
+            .field("posture_kp", &self.posture_kp)
+            .field("posture_kd", &self.posture_kd)
+            .field("tangent_weight", &self.tangent_weight)
+            .field("normal_weight", &self.normal_weight)
+            .field("torque_weight", &self.torque_weight)
+            .field("load_floor_share", &self.load_floor_share)
+            .field("mu_estimate", &self.mu_estimate)
+            .field("cone_margin", &self.cone_margin)
+            .field("min_normal_force", &self.min_normal_force)
+            .field("ground_normal", &self.ground_normal)
+            .field("foot_radius", &self.foot_radius);
+        if !self.extra.is_empty() {
+            d.field("extra", &self.extra);
+        }
+        d.finish()
+    }
 }
 
 impl Default for LawSettings {
@@ -124,6 +174,7 @@ impl Default for LawSettings {
             min_normal_force: 2.0,
             ground_normal: Vec3::z(),
             foot_radius: 0.0,
+            extra: BTreeMap::new(),
         }
     }
 }
@@ -131,7 +182,7 @@ impl Default for LawSettings {
 /// A control law.
 pub trait ControlLaw: Send {
     /// The registered name.
-    fn name(&self) -> &'static str;
+    fn name(&self) -> &str;
     /// Joint torques (model joint order) for this step.
     fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus;
     /// Contact forces the law predicts at each foot (world, N; zero for feet in swing or for
@@ -139,39 +190,20 @@ pub trait ControlLaw: Send {
     fn predicted_forces(&self) -> &[Vec3];
 }
 
-/// How to build a law: its own model of the robot (which may differ from the plant's), the
-/// frame indices of the feet, the settings.
-pub type LawBuilder = fn(Model, Vec<usize>, &LawSettings) -> Box<dyn ControlLaw>;
-
-/// Every law, by name. One line per law.
-pub const REGISTRY: &[(&str, LawBuilder)] = &[
-    ("stiff-pd", stiff_pd::StiffPd::boxed),
-    ("id-lean", id_min_torque::IdLean::boxed),
-    ("id-grip", id_tangent::IdGrip::boxed_published),
-    ("id-grip-load", id_tangent::IdGrip::boxed_load_normalised),
-    ("cone-margin", cone_program::ConeMargin::boxed),
-];
-
-/// Names of the registered laws.
-pub fn law_names() -> Vec<&'static str> {
-    REGISTRY.iter().map(|(n, _)| *n).collect()
+/// Names of the laws in the process's registry (built-in first, then registered ones).
+pub fn law_names() -> Vec<String> {
+    registry::with(|r| r.names())
 }
 
-/// Build a registered law by name.
+/// Build a law of the process's registry by name (a former name is accepted, with a notice).
 pub fn build_law(
     name: &str,
     model: Model,
     feet: Vec<usize>,
     settings: &LawSettings,
 ) -> Result<Box<dyn ControlLaw>, String> {
-    REGISTRY
-        .iter()
-        .find(|(n, _)| *n == name)
-        .map(|(_, b)| b(model, feet, settings))
-        .ok_or_else(|| {
-            format!(
-                "unknown controller '{name}'; allowed: {}",
-                law_names().join(", ")
-            )
-        })
+    let canonical = registry::resolve(name).ok_or_else(|| registry::with(|r| r.unknown(name)))?;
+    let builder = registry::with(|r| r.get(&canonical).map(|e| e.builder.clone()))
+        .ok_or_else(|| registry::with(|r| r.unknown(name)))?;
+    builder(model, feet, settings)
 }

@@ -14,6 +14,7 @@ pub struct StiffPd {
 }
 
 impl StiffPd {
+    pub const NAME: &'static str = "stiff-pd";
     pub fn boxed(model: Model, feet: Vec<usize>, settings: &LawSettings) -> Box<dyn ControlLaw> {
         Box::new(StiffPd {
             kp: settings.stiff_kp,
@@ -25,8 +26,8 @@ impl StiffPd {
 }
 
 impl ControlLaw for StiffPd {
-    fn name(&self) -> &'static str {
-        "stiff-pd"
+    fn name(&self) -> &str {
+        Self::NAME
     }
     fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
         for j in 0..self.nj {

@@ -1,24 +1,24 @@
 //! What the model-based laws share: the dynamics terms at the observed state, the stance
 //! contact Jacobian and its orthogonal decomposition, the reference acceleration with feedback
 //! on the plan, and the low-gain joint PD. They differ only in how they pick τ (and so the
-//! contact forces) among the torques consistent with the constrained dynamics.
+//! contact forces) among the torques consistent with the constrained dynamics: a model-based
+//! law implements [`Distribution`] (that choice alone) and gets [`ControlLaw`] from the one
+//! skeleton here (prepare → distribute → predict the forces → joint feedback).
 //!
 //! Floating-base dynamics M v̇ + h = Sᵀτ + J_cᵀλ with stance feet held: J_c v̇ + J̇_c v = 0.
 //! QR of J_cᵀ = Q [R; 0], Q = [Q_c Q_u] (Mistry, Buchli & Schaal, "Inverse dynamics control of
 //! floating base systems using orthogonal decomposition", ICRA 2010): the rows Q_uᵀ remove the
 //! unknown contact forces, Q_uᵀ (M v̇ + h) = Q_uᵀ Sᵀ τ, and λ = R⁻¹ Q_cᵀ (M v̇ + h − Sᵀτ).
 
-use super::{LawSettings, LawStatus, Observation, Target};
+use super::{ControlLaw, LawSettings, LawStatus, Observation, Target};
 use crate::algorithms::{
     Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics, point_jacobian,
     rnea_after_fk, velocities_and_bias,
 };
 use crate::configuration::difference_into;
-use crate::dense::{
-    cholesky_in_place, cholesky_solve, householder_qr, solve_upper, solve_upper_transposed,
-};
+use crate::dense::{cholesky_in_place, cholesky_solve, householder_qr, min_pivot};
 use crate::model::{Model, RootKind};
-use crate::spatial::Vec3;
+use crate::spatial::{Mat3, Vec3};
 use nalgebra::{DMatrix, DVector};
 
 pub struct WholeBody {
@@ -66,6 +66,18 @@ pub struct WholeBody {
     scratch_n: DMatrix<f64>,
     scratch_v: Vec<f64>,
     scratch_c: Vec<f64>,
+    /// Whether `qr` and `q` hold this step's decomposition (computed only when a law needs
+    /// it: see [`WholeBody::ensure_qr`]).
+    qr_valid: bool,
+    /// Cholesky factor (lower) of J_c J_cᵀ (3k × 3k), every step.
+    gram: DMatrix<f64>,
+    /// The force-space KKT data: H (3k × 3k, then its factor), H⁻¹ J_b (3k × 6), the Schur
+    /// complement J_bᵀ H⁻¹ J_b (6 × 6, then its factor), and two 3k vectors.
+    hess: DMatrix<f64>,
+    hinv_jb: DMatrix<f64>,
+    schur: DMatrix<f64>,
+    force_g: Vec<f64>,
+    force_y: Vec<f64>,
 }
 
 impl WholeBody {
@@ -105,6 +117,13 @@ impl WholeBody {
             scratch_n: DMatrix::zeros(nv.max(nj), nv.max(nj)),
             scratch_v: vec![0.0; nv.max(nj)],
             scratch_c: vec![0.0; 3 * nf],
+            qr_valid: false,
+            gram: DMatrix::zeros(3 * nf, 3 * nf),
+            hess: DMatrix::zeros(3 * nf, 3 * nf),
+            hinv_jb: DMatrix::zeros(3 * nf, 6),
+            schur: DMatrix::zeros(6, 6),
+            force_g: vec![0.0; 3 * nf],
+            force_y: vec![0.0; 3 * nf],
             feet,
             settings: settings.clone(),
             model,
@@ -164,19 +183,21 @@ impl WholeBody {
                 self.jdot_v[3 * c + r] = b[r];
             }
         }
-        for c in 0..3 * k {
-            for r in 0..self.nv {
-                self.qr[(r, c)] = self.jct[(r, c)];
+        // Gram matrix J_c J_cᵀ and its Cholesky factor: the projection below and the force
+        // prediction need only this; the full QR is formed on demand (`ensure_qr`).
+        self.qr_valid = false;
+        let k3 = 3 * k;
+        for a in 0..k3 {
+            let ca = &self.jct.as_slice()[a * self.nv..(a + 1) * self.nv];
+            for b in 0..=a {
+                let cb = &self.jct.as_slice()[b * self.nv..(b + 1) * self.nv];
+                let v: f64 = ca.iter().zip(cb).map(|(x, y)| x * y).sum();
+                self.gram[(a, b)] = v;
+                self.gram[(b, a)] = v;
             }
         }
-        let min_diag = householder_qr(
-            &mut self.qr,
-            self.nv,
-            3 * k,
-            &mut self.q,
-            &mut self.householder,
-        );
-        if k > 0 && min_diag < 1e-9 {
+        // Rank check as before (smallest |R_jj| ≥ 1e-9, R_jj² = the Cholesky pivots²).
+        if k > 0 && !(cholesky_in_place(&mut self.gram, k3) && min_pivot(&self.gram, k3) >= 1e-9) {
             return Err(LawStatus::Failed);
         }
 
@@ -192,7 +213,7 @@ impl WholeBody {
             self.vdot_ref[i] = target.a[i] + kd * (target.v[i] - obs.v[i]) + kp * self.err[i];
         }
         // Least-change projection onto J_c v̇ = −J̇_c v: v̇ = v̇_ref − J_c⁺ (J_c v̇_ref + J̇_c v),
-        // J_c⁺ = Q_c R⁻ᵀ from the same decomposition.
+        // J_c⁺ = J_cᵀ (J_c J_cᵀ)⁻¹.
         let c = &mut self.scratch_c;
         for col in 0..3 * k {
             let mut sum = self.jdot_v[col];
@@ -201,21 +222,28 @@ impl WholeBody {
             }
             c[col] = sum;
         }
-        solve_upper_transposed(&self.qr, 3 * k, c);
+        cholesky_solve(&self.gram, 3 * k, c);
         for r in 0..self.nv {
             let mut corr = 0.0;
             for col in 0..3 * k {
-                corr += self.q[(r, col)] * c[col];
+                corr += self.jct[(r, col)] * c[col];
             }
             self.vdot[r] = self.vdot_ref[r] - corr;
         }
-        // rhs = M v̇ + h
-        for r in 0..self.nv {
-            let mut sum = self.h[r];
-            for col in 0..self.nv {
-                sum += ws.mass_matrix[(r, col)] * self.vdot[col];
+        // rhs = M v̇ + h, by columns of M (contiguous).
+        self.rhs.copy_from(&self.h);
+        let nv = self.nv;
+        let m = ws.mass_matrix.as_slice();
+        let ldm = ws.mass_matrix.nrows();
+        for col in 0..nv {
+            let x = self.vdot[col];
+            if x != 0.0 {
+                self.rhs
+                    .as_mut_slice()
+                    .iter_mut()
+                    .zip(&m[col * ldm..col * ldm + nv])
+                    .for_each(|(y, a)| *y += a * x);
             }
-            self.rhs[r] = sum;
         }
         Ok(())
     }
@@ -232,10 +260,148 @@ impl WholeBody {
         }
     }
 
+    /// The QR of J_cᵀ for this step ([`WholeBody::a_entry`], [`WholeBody::r`], `q`): formed
+    /// only by the paths that need it.
+    pub fn ensure_qr(&mut self) {
+        if self.qr_valid {
+            return;
+        }
+        let k3 = 3 * self.k;
+        for c in 0..k3 {
+            for r in 0..self.nv {
+                self.qr[(r, c)] = self.jct[(r, c)];
+            }
+        }
+        householder_qr(
+            &mut self.qr,
+            self.nv,
+            k3,
+            &mut self.q,
+            &mut self.householder,
+        );
+        self.qr_valid = true;
+    }
+
+    /// The consistent torque that minimises ½ Σ_f λ_fᵀ W_f λ_f + ½ w_τ ‖τ‖², solved in the
+    /// contact forces: the consistent torques are exactly τ = rhs_j − J_jᵀλ with J_bᵀλ = rhs_b
+    /// (the six base rows of M v̇ + h = Sᵀτ + J_cᵀλ), so λ solves the equality-constrained
+    /// least squares
+    ///   [H    J_b] [λ]   [w_τ J_j rhs_j]
+    ///   [J_bᵀ 0  ] [ν] = [rhs_b        ],  H = blkdiag(W_f) + w_τ J_j J_jᵀ,
+    /// by Cholesky of H (SPD; block diagonal when each foot's rows touch only its own leg's
+    /// joints) and of the 6 × 6 Schur complement J_bᵀ H⁻¹ J_b (range-space method: Nocedal &
+    /// Wright, "Numerical Optimization", 2nd ed., Springer 2006, §16.2). `weight(c)` gives W_f
+    /// of stance foot c (world axes), `None` for W = 0 (the minimum-norm torque). Returns false
+    /// (nothing written) when H or the Schur complement is not positive definite; the caller
+    /// then takes the orthogonal-decomposition path.
+    pub fn solve_in_forces(&mut self, wt: f64, weight: Option<&dyn Fn(usize) -> Mat3>) -> bool {
+        let (nv, k3) = (self.nv, 3 * self.k);
+        if k3 < 6 {
+            return false;
+        }
+        let jct = self.jct.as_slice();
+        for a in 0..k3 {
+            let ca = &jct[a * nv + 6..(a + 1) * nv];
+            for b in 0..=a {
+                let cb = &jct[b * nv + 6..(b + 1) * nv];
+                let v = wt * ca.iter().zip(cb).map(|(x, y)| x * y).sum::<f64>();
+                self.hess[(a, b)] = v;
+                self.hess[(b, a)] = v;
+            }
+            let rhs_j = &self.rhs.as_slice()[6..nv];
+            self.force_g[a] = wt * ca.iter().zip(rhs_j).map(|(x, y)| x * y).sum::<f64>();
+        }
+        if let Some(w) = weight {
+            for c in 0..self.k {
+                let wc = w(c);
+                for r in 0..3 {
+                    for m in 0..3 {
+                        self.hess[(3 * c + r, 3 * c + m)] += wc[(r, m)];
+                    }
+                }
+            }
+        }
+        if !cholesky_in_place(&mut self.hess, k3) {
+            return false;
+        }
+        // H⁻¹ J_b column by column (J_b[a, i] = J_cᵀ[i, a]), then S = J_bᵀ H⁻¹ J_b.
+        for i in 0..6 {
+            let col = &mut self.force_y;
+            for a in 0..k3 {
+                col[a] = jct[a * nv + i];
+            }
+            cholesky_solve(&self.hess, k3, &mut col[..k3]);
+            for a in 0..k3 {
+                self.hinv_jb[(a, i)] = col[a];
+            }
+        }
+        for i in 0..6 {
+            for j in 0..=i {
+                let mut v = 0.0;
+                for a in 0..k3 {
+                    v += jct[a * nv + i] * self.hinv_jb[(a, j)];
+                }
+                self.schur[(i, j)] = v;
+                self.schur[(j, i)] = v;
+            }
+        }
+        if !cholesky_in_place(&mut self.schur, 6) {
+            return false;
+        }
+        // y = H⁻¹ g; ν = S⁻¹ (J_bᵀ y − rhs_b); λ = y − H⁻¹J_b ν.
+        let y = &mut self.force_y;
+        y[..k3].copy_from_slice(&self.force_g[..k3]);
+        cholesky_solve(&self.hess, k3, &mut y[..k3]);
+        let mut nu = [0.0; 6];
+        for (i, n) in nu.iter_mut().enumerate() {
+            let mut v = -self.rhs[i];
+            for a in 0..k3 {
+                v += jct[a * nv + i] * y[a];
+            }
+            *n = v;
+        }
+        let schur = &self.schur;
+        for i in 0..6 {
+            let mut v = nu[i];
+            for m in 0..i {
+                v -= schur[(i, m)] * nu[m];
+            }
+            nu[i] = v / schur[(i, i)];
+        }
+        for i in (0..6).rev() {
+            let mut v = nu[i];
+            for m in i + 1..6 {
+                v -= schur[(m, i)] * nu[m];
+            }
+            nu[i] = v / schur[(i, i)];
+        }
+        for a in 0..k3 {
+            let mut v = y[a];
+            for (i, n) in nu.iter().enumerate() {
+                v -= self.hinv_jb[(a, i)] * n;
+            }
+            self.lambda[a] = v;
+        }
+        // τ = rhs_j − J_jᵀ λ.
+        for j in 0..self.nj {
+            let mut v = self.rhs[6 + j];
+            for a in 0..k3 {
+                v -= jct[a * nv + 6 + j] * self.lambda[a];
+            }
+            self.tau_id[j] = v;
+        }
+        true
+    }
+
     /// The minimum-norm τ with Q_uᵀ Sᵀ τ = Q_uᵀ (M v̇ + h): τ = (Q_uᵀSᵀ)⁺ Q_uᵀ (M v̇ + h).
-    /// With fewer than two stance feet the system is overdetermined: least squares, reported
-    /// as underactuated.
+    /// With two or more stance feet it is solved in the contact forces
+    /// ([`WholeBody::solve_in_forces`] with W = 0, w_τ = 1); with fewer the system is
+    /// overdetermined: least squares, reported as underactuated.
     pub fn min_torque(&mut self) -> LawStatus {
+        if self.solve_in_forces(1.0, None) {
+            return LawStatus::Solved;
+        }
+        self.ensure_qr();
         let rows = self.free_rows();
         let nj = self.nj;
         let mut b = std::mem::take(&mut self.scratch_v);
@@ -301,18 +467,21 @@ impl WholeBody {
         status
     }
 
-    /// λ = R⁻¹ Q_cᵀ (M v̇ + h − Sᵀ τ_id), and the per-foot forces.
+    /// λ = (J_c J_cᵀ)⁻¹ J_c (M v̇ + h − Sᵀ τ_id) (= R⁻¹ Q_cᵀ (…) of the QR), and the per-foot
+    /// forces.
     pub fn predict_forces(&mut self) {
-        let k3 = 3 * self.k;
+        let (nv, k3) = (self.nv, 3 * self.k);
+        let jct = self.jct.as_slice();
         for col in 0..k3 {
+            let c = &jct[col * nv..(col + 1) * nv];
             let mut s = 0.0;
-            for r in 0..self.nv {
+            for r in 0..nv {
                 let st = if r >= 6 { self.tau_id[r - 6] } else { 0.0 };
-                s += self.q[(r, col)] * (self.rhs[r] - st);
+                s += c[r] * (self.rhs[r] - st);
             }
             self.lambda[col] = s;
         }
-        solve_upper(&self.qr, k3, &mut self.lambda.as_mut_slice()[..k3]);
+        cholesky_solve(&self.gram, k3, &mut self.lambda.as_mut_slice()[..k3]);
         for f in self.forces.iter_mut() {
             *f = Vec3::zeros();
         }
@@ -367,5 +536,71 @@ impl WholeBody {
             *f = Vec3::zeros();
         }
         self.output_with_joint_pd(obs, target, tau);
+    }
+}
+
+/// What a model-based law decides: τ (and so the contact forces) among the torques consistent
+/// with the constrained dynamics that [`WholeBody::prepare`] set up. Everything else of the
+/// control step — dynamics terms, stance Jacobian, reference acceleration, the force
+/// prediction, the joint feedback, the fallbacks — is the shared skeleton, so implementing this
+/// trait makes a [`ControlLaw`].
+pub trait Distribution: Send {
+    /// The registered name.
+    fn name(&self) -> &str;
+    fn body(&self) -> &WholeBody;
+    fn body_mut(&mut self) -> &mut WholeBody;
+    /// Fill `body.tau_id` for a stance set with at least two feet (with fewer, no contact-force
+    /// freedom is left and the skeleton uses the minimum-norm torque).
+    fn distribute(&mut self) -> LawStatus;
+    /// Whether [`Distribution::distribute`] already filled `body.forces` and `body.lambda`
+    /// (otherwise the skeleton predicts them from τ).
+    fn fills_forces(&self) -> bool {
+        false
+    }
+    /// On a failed distribution: apply the minimum-norm consistent torque (reported as failed)
+    /// instead of the joint feedback alone.
+    fn min_torque_on_failure(&self) -> bool {
+        false
+    }
+}
+
+impl<D: Distribution> ControlLaw for D {
+    fn name(&self) -> &str {
+        Distribution::name(self)
+    }
+    fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
+        if let Err(status) = self.body_mut().prepare(obs, target) {
+            self.body_mut().fallback(obs, target, tau);
+            return status;
+        }
+        // With fewer than two stance feet no contact-force freedom is left: the minimum-norm
+        // consistent torque is the only one.
+        let few = 3 * self.body().k < 6;
+        let status = if few {
+            self.body_mut().min_torque()
+        } else {
+            self.distribute()
+        };
+        if status == LawStatus::Failed {
+            let retry = !few && self.min_torque_on_failure();
+            let body = self.body_mut();
+            if retry && body.min_torque() != LawStatus::Failed {
+                body.predict_forces();
+                body.output_with_joint_pd(obs, target, tau);
+            } else {
+                body.fallback(obs, target, tau);
+            }
+            return LawStatus::Failed;
+        }
+        if few || !self.fills_forces() {
+            self.body_mut().predict_forces();
+        }
+        let body = self.body_mut();
+        body.remember_loads(target.stance);
+        body.output_with_joint_pd(obs, target, tau);
+        status
+    }
+    fn predicted_forces(&self) -> &[Vec3] {
+        &self.body().forces
     }
 }

@@ -1,4 +1,5 @@
-//! Floating-base inverse dynamics that distributes the contact forces by a quadratic cost on
+//! Contact-force-cost inverse dynamics and its load-normalised variant: floating-base inverse
+//! dynamics that distributes the contact forces by a quadratic cost on
 //! the predicted forces in each foot's surface frame plus a small torque cost (Righetti, Buchli,
 //! Mistry, Kalakrishnan & Schaal, "Optimal distribution of contact forces with inverse-dynamics
 //! control", IJRR 2013). The consistent torques are τ with A τ = b (A = Q_uᵀSᵀ, b = Q_uᵀ(M v̇ +
@@ -13,16 +14,19 @@
 //!   expected normal load (last step's prediction, floored), so the cost evens out the
 //!   tangential/normal ratios instead of the newtons. On a slope the uphill feet carry less;
 //!   the published weighting spreads tangential newtons evenly and so gives the light feet the
-//!   worst ratio (see DESIGN.md, prototype findings).
+//!   worst ratio.
+//!
+//! Only this distribution lives here; the rest of the control step is the shared skeleton
+//! ([`super::whole_body`]).
 
-use super::whole_body::WholeBody;
-use super::{ControlLaw, LawSettings, LawStatus, Observation, Target};
+use super::whole_body::{Distribution, WholeBody};
+use super::{ControlLaw, LawSettings, LawStatus};
 use crate::dense::{lu_solve_in_place, solve_upper};
 use crate::model::Model;
-use crate::spatial::{Mat3, Vec3};
+use crate::spatial::Mat3;
 use nalgebra::DMatrix;
 
-pub struct IdGrip {
+pub struct ForceCostId {
     pub body: WholeBody,
     load_normalised: bool,
     /// B = R⁻¹ Q_cᵀ Sᵀ (3k × nj) and λ₀.
@@ -33,9 +37,14 @@ pub struct IdGrip {
     kkt: DMatrix<f64>,
     kkt_rhs: Vec<f64>,
     col: Vec<f64>,
+    /// Each stance foot's weight this step (world axes).
+    weights: Vec<Mat3>,
 }
 
-impl IdGrip {
+impl ForceCostId {
+    /// The registered names: as published, and load-normalised.
+    pub const NAME: &'static str = "force-cost-id";
+    pub const NAME_LOAD: &'static str = "force-cost-id-load";
     pub fn new(
         model: Model,
         feet: Vec<usize>,
@@ -46,7 +55,7 @@ impl IdGrip {
         let nj = model.n_joints();
         let nv = model.nv();
         let body = WholeBody::new(model, feet, settings);
-        IdGrip {
+        ForceCostId {
             body,
             load_normalised,
             b_mat: DMatrix::zeros(3 * nf, nj),
@@ -55,6 +64,7 @@ impl IdGrip {
             kkt: DMatrix::zeros(nj + nv, nj + nv),
             kkt_rhs: vec![0.0; nj + nv],
             col: vec![0.0; 3 * nf],
+            weights: Vec::with_capacity(nf),
         }
     }
     pub fn boxed_published(
@@ -85,7 +95,7 @@ impl IdGrip {
         (Mat3::identity() - nnt) * w_t + nnt * s.normal_weight
     }
 
-    fn distribute(&mut self) -> LawStatus {
+    fn solve_kkt(&mut self) -> LawStatus {
         let body = &self.body;
         let (k, nj) = (body.k, body.nj);
         let k3 = 3 * k;
@@ -162,36 +172,38 @@ impl IdGrip {
     }
 }
 
-impl ControlLaw for IdGrip {
-    fn name(&self) -> &'static str {
+impl Distribution for ForceCostId {
+    fn name(&self) -> &str {
         if self.load_normalised {
-            "id-grip-load"
+            Self::NAME_LOAD
         } else {
-            "id-grip"
+            Self::NAME
         }
     }
-    fn compute(&mut self, obs: &Observation, target: &Target, tau: &mut [f64]) -> LawStatus {
-        if let Err(status) = self.body.prepare(obs, target) {
-            self.body.fallback(obs, target, tau);
-            return status;
-        }
-        // With fewer than two stance feet no torque freedom is left: the minimum-torque
-        // solution is the only consistent one.
-        let status = if 3 * self.body.k < 6 {
-            self.body.min_torque()
-        } else {
-            self.distribute()
-        };
-        if status == LawStatus::Failed {
-            self.body.fallback(obs, target, tau);
-            return status;
-        }
-        self.body.predict_forces();
-        self.body.remember_loads(target.stance);
-        self.body.output_with_joint_pd(obs, target, tau);
-        status
+    fn body(&self) -> &WholeBody {
+        &self.body
     }
-    fn predicted_forces(&self) -> &[Vec3] {
-        &self.body.forces
+    fn body_mut(&mut self) -> &mut WholeBody {
+        &mut self.body
+    }
+    /// Solved in the contact forces (Cholesky of the SPD force-space system, see
+    /// [`WholeBody::solve_in_forces`]); the torque-space KKT system by LU when that system is
+    /// not positive definite (e.g. a zero normal weight and a singular leg).
+    fn distribute(&mut self) -> LawStatus {
+        let k = self.body.k;
+        let mut weights = std::mem::take(&mut self.weights);
+        weights.clear();
+        for c in 0..k {
+            weights.push(self.foot_weight(self.body.stance[c], k));
+        }
+        let wt = self.body.settings.torque_weight;
+        let done = self.body.solve_in_forces(wt, Some(&|c| weights[c]));
+        self.weights = weights;
+        if done {
+            LawStatus::Solved
+        } else {
+            self.body.ensure_qr();
+            self.solve_kkt()
+        }
     }
 }
