@@ -305,7 +305,7 @@ fn a_two_joint_leg_is_refused_with_the_reason() {
     let scenario = dir.join("two-joint-scenario.toml");
     std::fs::write(
         &scenario,
-        "name = \"two-joint\"\nrobot = \"two-joint.toml\"\nduration = 9.0\n[gait]\nkind = \"crawl\"\n[axes]\ncontroller = [\"id-grip\"]\n",
+        "name = \"two-joint\"\nrobot = \"two-joint.toml\"\nduration = 9.0\n[gait]\nkind = \"crawl\"\n[axes]\ncontroller = [\"force-cost-id\"]\n",
     )
     .unwrap();
     let out = gripsweep(&["check", &scenario.display().to_string()]);
@@ -400,7 +400,7 @@ fn planner_errors_speak_of_the_robot_and_name_a_gait_setting() {
     std::fs::write(
         &scenario,
         format!(
-            "name = \"long-step\"\nrobot = \"{}\"\nduration = 12.0\n[gait]\nkind = \"crawl\"\nstep_length = 0.4\n[axes]\ncontroller = [\"id-grip\"]\n",
+            "name = \"long-step\"\nrobot = \"{}\"\nduration = 12.0\n[gait]\nkind = \"crawl\"\nstep_length = 0.4\n[axes]\ncontroller = [\"force-cost-id\"]\n",
             root().join("scenarios/robots/yarrow.toml").display()
         ),
     )
@@ -418,7 +418,7 @@ fn planner_errors_speak_of_the_robot_and_name_a_gait_setting() {
 #[test]
 fn new_robots_stand_shift_and_crawl_and_a_model_based_law_holds_the_crawl() {
     let flat = Slope::degrees(0.0);
-    for (name, law, duration) in [("yarrow", "id-grip", 9.0), ("cairn", "id-grip", 5.0)] {
+    for (name, law, duration) in [("yarrow", "force-cost-id", 9.0), ("cairn", "force-cost-id", 5.0)] {
         let r = load(name);
         let h = r.nominal_stance().height;
         // The robot command's stance check passes.
