@@ -5,6 +5,7 @@ pub mod cell;
 pub mod cli_robot;
 pub mod cli_run;
 pub mod floor;
+pub mod ladder;
 pub mod limits;
 pub mod matrix;
 pub mod metrics;
