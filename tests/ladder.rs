@@ -61,7 +61,13 @@ fn ladder_runs_every_rung_and_reports_every_output_against_the_finest() {
     let scen = two_cells(&dir);
     let out = dir.join("ladder");
     let o = Command::new(env!("CARGO_BIN_EXE_gripsweep"))
-        .args(["ladder", scen.to_str().unwrap(), "--quiet", "--rungs", "1/1,1/2"])
+        .args([
+            "ladder",
+            scen.to_str().unwrap(),
+            "--quiet",
+            "--rungs",
+            "1/1,1/2",
+        ])
         .arg("--out")
         .arg(&out)
         .output()
@@ -127,7 +133,10 @@ fn ladder_runs_every_rung_and_reports_every_output_against_the_finest() {
                 let (v, fv) = (num(&cell[column]), num(&f[column]));
                 assert!((num(&row["value"]) - v).abs() < 1e-5, "{rung} {output}");
                 assert!((num(&row["finest"]) - fv).abs() < 1e-5, "{rung} {output}");
-                assert!((num(&row["change"]) - (v - fv)).abs() < 2e-6, "{rung} {output}");
+                assert!(
+                    (num(&row["change"]) - (v - fv)).abs() < 2e-6,
+                    "{rung} {output}"
+                );
                 let tol = num(&row["tolerance"]);
                 assert!(tol >= 0.05 * fv.abs() - 1e-6, "{rung} {output}");
                 assert_eq!(
@@ -147,7 +156,13 @@ fn ladder_runs_every_rung_and_reports_every_output_against_the_finest() {
 
     // A second ladder into the same folder is refused without --resume.
     let again = Command::new(env!("CARGO_BIN_EXE_gripsweep"))
-        .args(["ladder", scen.to_str().unwrap(), "--quiet", "--rungs", "1/1,1/2"])
+        .args([
+            "ladder",
+            scen.to_str().unwrap(),
+            "--quiet",
+            "--rungs",
+            "1/1,1/2",
+        ])
         .arg("--out")
         .arg(&out)
         .output()
@@ -170,7 +185,13 @@ fn bad_rungs_are_refused_naming_the_rung_and_nothing_is_written() {
     ] {
         let out = dir.join("out");
         let o = Command::new(env!("CARGO_BIN_EXE_gripsweep"))
-            .args(["ladder", scen.to_str().unwrap(), "--quiet", "--rungs", rungs])
+            .args([
+                "ladder",
+                scen.to_str().unwrap(),
+                "--quiet",
+                "--rungs",
+                rungs,
+            ])
             .arg("--out")
             .arg(&out)
             .output()

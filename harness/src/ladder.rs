@@ -470,7 +470,12 @@ pub fn compare(
             }
             let figures: [(&'static str, Metric, f64, bool); 3] = [
                 ("slip_mean_mm", Metric::SlipMean, tol.slip_share, true),
-                ("base_pos_rms_mm", Metric::BasePosRms, tol.tracking_share, false),
+                (
+                    "base_pos_rms_mm",
+                    Metric::BasePosRms,
+                    tol.tracking_share,
+                    false,
+                ),
                 ("joint_rms_deg", Metric::JointRms, tol.tracking_share, false),
             ];
             for (name, m, share, is_slip) in figures {
@@ -681,7 +686,8 @@ pub fn rungs_csv(sum: &LadderSummary) -> String {
 
 fn write_tables(out: &Path, sum: &LadderSummary) -> Result<(), String> {
     let w = |name: &str, text: String| {
-        std::fs::write(out.join(name), text).map_err(|e| format!("{}: {e}", out.join(name).display()))
+        std::fs::write(out.join(name), text)
+            .map_err(|e| format!("{}: {e}", out.join(name).display()))
     };
     w(RUNGS_FILE, rungs_csv(sum))?;
     let mut c = CHANGES_COLUMNS.join(",") + "\n";
