@@ -40,6 +40,9 @@ enum Command {
     /// its model: coordinates, bodies, joints with limits, mass, centre of mass, feet; with
     /// --state, the dynamics terms at one state as JSON.
     Robot(RobotArgs),
+    /// Run the scenario at a ladder of plant settings (step, substeps, contact stiffness) and
+    /// compare every output the summary uses, and every verdict, with the finest rung.
+    Ladder(crate::ladder::LadderArgs),
 }
 
 /// The whole command-line front end over the built-in laws.
@@ -77,6 +80,7 @@ pub fn main_with(registry: Registry) -> ExitCode {
         Command::Trace(a) => cli_run::cmd_trace(a).map_err(into_cli),
         Command::Report(a) => cli_run::cmd_report(a).map_err(into_cli),
         Command::Merge(a) => cli_run::cmd_merge(a).map_err(into_cli),
+        Command::Ladder(a) => crate::ladder::cmd_ladder(a).map_err(into_cli),
     };
     match outcome {
         Ok(text) => {

@@ -7,6 +7,7 @@ pub mod cli_robot;
 pub mod cli_run;
 pub mod floor;
 pub mod infer;
+pub mod ladder;
 pub mod limits;
 pub mod matrix;
 pub mod meshes;

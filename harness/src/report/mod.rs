@@ -28,9 +28,9 @@ pub use input::{
 };
 pub use plots::Image;
 pub use stats::{Stat, mean_ci95, over_seeds, t_975};
-pub use tables::{Verdict, judge};
+pub use tables::{Axis, Study, Verdict, judge};
 
-use tables::{Axis, ComputeRow, Condition, Entry, LawRecord, Measure, OnsetTable, Pivot, Study};
+use tables::{ComputeRow, Condition, Entry, LawRecord, Measure, OnsetTable, Pivot};
 
 /// Name of the people's summary inside the run folder.
 pub const SUMMARY_MD: &str = "summary.md";
