@@ -418,7 +418,10 @@ fn planner_errors_speak_of_the_robot_and_name_a_gait_setting() {
 #[test]
 fn new_robots_stand_shift_and_crawl_and_a_model_based_law_holds_the_crawl() {
     let flat = Slope::degrees(0.0);
-    for (name, law, duration) in [("yarrow", "force-cost-id", 9.0), ("cairn", "force-cost-id", 5.0)] {
+    for (name, law, duration) in [
+        ("yarrow", "force-cost-id", 9.0),
+        ("cairn", "force-cost-id", 5.0),
+    ] {
         let r = load(name);
         let h = r.nominal_stance().height;
         // The robot command's stance check passes.
