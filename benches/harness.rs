@@ -65,6 +65,7 @@ fn cell(controller: &str) -> Cell {
         com_shift_mm: 0.0,
         sensor_noise: 0.0,
         seed: 0,
+        world: Default::default(),
     }
 }
 

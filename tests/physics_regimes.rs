@@ -37,6 +37,7 @@ fn cell(slope_deg: f64, mu: f64, controller: &str) -> Cell {
         com_shift_mm: 0.0,
         sensor_noise: 0.0,
         seed: 0,
+        world: Default::default(),
     }
 }
 

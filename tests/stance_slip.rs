@@ -233,6 +233,7 @@ fn a_stiff_pd_unstable_at_its_rate_is_not_ok() {
         com_shift_mm: 0.0,
         sensor_noise: 0.0,
         seed: 0,
+        world: Default::default(),
     };
     let ctx = CellContext {
         scenario: &s,

@@ -9,7 +9,8 @@ use crate::metrics::{
 };
 use crate::planner::{Plan, PlanSample};
 use crate::plant::actuator::Actuator;
-use crate::plant::terrain::{Slope, Terrain};
+use crate::plant::terrain::Terrain;
+use crate::plant::world::{Ground, PatchRect, PatchShape, push_force};
 use crate::plant::{Plant, PlantSettings};
 use crate::robot::LoadedRobot;
 use crate::scenario::{NoiseFile, Scenario};
@@ -87,10 +88,10 @@ pub fn controller_model(truth: &Model, mass_scale: f64, com_shift_mm: f64) -> Mo
     m
 }
 
-/// Law settings for a cell: the ground normal of its slope and the estimated μ.
+/// Law settings for a cell: the ground normal of its (nominal) terrain and the estimated μ.
 pub fn law_settings(
     base: &LawSettings,
-    slope: &Slope,
+    slope: &dyn Terrain,
     mu: f64,
     mu_estimate_scale: f64,
 ) -> LawSettings {
@@ -198,7 +199,9 @@ fn simulate(
     let s = ctx.scenario;
     let robot = ctx.robot;
     let model = &robot.model;
-    let slope = Slope::degrees(cell.slope_deg);
+    // issue 14 (world14): the planner plans on the nominal plane (slope and heading); the
+    // plant's ground adds what the plan does not see (step, bumps, friction patch).
+    let slope = Ground::plane(cell.slope_deg, cell.world.heading_deg);
     let built;
     let plan = match shared {
         Some(p) => p,
@@ -212,8 +215,23 @@ fn simulate(
     };
     let settings: PlantSettings = s.plant;
     let dt = settings.dt;
-    let mut plant = Plant::new(robot, Box::new(slope), cell.mu, settings);
     let feet = robot.foot_frames();
+    let (q0, _) = plan.initial_state();
+    let patch = match patch_rect(ctx, cell, &slope, &q0) {
+        Ok(p) => p,
+        Err(e) => return error_outcome(e),
+    };
+    let terrain_variant = s.world.terrain(&cell.world.terrain);
+    let ground = Ground::plane(cell.slope_deg, cell.world.heading_deg).with(
+        &terrain_variant,
+        cell.seed,
+        patch,
+    );
+    let mut plant = Plant::new(robot, Box::new(ground), cell.mu, settings);
+    let push = s.world.push.get(&cell.world.push).cloned();
+    let push_start = push
+        .as_ref()
+        .map_or(0.0, |p| (p.cycle as f64 + p.phase) * plan.cycle_time());
     let nj = model.n_joints();
 
     // Actuators per joint, and the joint friction each model shows.
@@ -242,7 +260,19 @@ fn simulate(
     let base_law = s.law_settings_for(&cell.controller, cell.rate_hz, cell.actuator);
     let settings_law = LawSettings {
         foot_radius: robot.facts.feet.radius,
-        ..law_settings(&base_law, &slope, cell.mu, s.mu_estimate_scale)
+        // issue 14 (world14): a known patch gives each foot the μ̂ under its starting spot
+        // (a track patch stays under its foot all run).
+        mu_estimate_feet: match patch {
+            Some(p) if cell.world.patch_known => foot_spots(ctx, &slope, &q0)
+                .iter()
+                .map(|&(u, v)| {
+                    let mu = if p.contains(u, v) { p.mu } else { cell.mu };
+                    mu * cell.world.mu_estimate_scale
+                })
+                .collect(),
+            _ => Vec::new(),
+        },
+        ..law_settings(&base_law, &slope, cell.mu, cell.world.mu_estimate_scale)
     };
     let mut law: Box<dyn ControlLaw> =
         match build_law(&cell.controller, law_model, feet.clone(), &settings_law) {
@@ -253,7 +283,7 @@ fn simulate(
     let steps = (s.duration / dt).round() as usize;
     let every = (1.0 / (cell.rate_hz * dt)).round().max(1.0) as usize;
     let delay_steps = (s.noise.delay / dt).round() as usize;
-    let uphill = slope.uphill();
+    let uphill = slope.forward();
     let start = Vec3::new(q[0], q[1], q[2]);
     let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
     let mut acc =
@@ -326,6 +356,9 @@ fn simulate(
             saturated |= actuators[k].saturated();
         }
         plant.set_joint_torques(&applied);
+        if let Some(p) = &push {
+            plant.set_base_force(push_force(p, push_start, t, dt, &slope));
+        }
         if let Err(d) = plant.step() {
             status = CellStatus::Diverged;
             message = d.0;
@@ -387,6 +420,7 @@ fn simulate(
             });
         }
         // Falls: trunk low or tilted relative to the ground, or a non-foot link on the ground.
+        let slope = plant.terrain();
         let n = slope.normal_at(base.trans.x, base.trans.y);
         let height = (base.trans
             - Vec3::new(
@@ -454,3 +488,60 @@ fn simulate(
         wall_s: 0.0,
     }
 }
+
+// --- issue 14 (world14) ---
+/// Plane coordinates (u along the path, v to the left) of each foot's ground point at `q`.
+fn foot_spots(ctx: &CellContext, ground: &Ground, q: &DVector<f64>) -> Vec<(f64, f64)> {
+    let model = &ctx.robot.model;
+    let mut ws = gripsweep_controllers::algorithms::Workspace::new(model);
+    gripsweep_controllers::algorithms::forward_kinematics(model, &mut ws, q);
+    ctx.robot
+        .foot_frames()
+        .iter()
+        .map(|&f| {
+            let p = gripsweep_controllers::algorithms::frame_pose(model, &ws, f).trans;
+            ground.plane_coords(p.x, p.y)
+        })
+        .collect()
+}
+
+/// The cell's friction patch in plane coordinates (a track follows its foot's starting spot).
+fn patch_rect(
+    ctx: &CellContext,
+    cell: &Cell,
+    ground: &Ground,
+    q0: &DVector<f64>,
+) -> Result<Option<PatchRect>, String> {
+    let Some(shape) = ctx.scenario.world.patch.get(&cell.world.patch) else {
+        return Ok(None);
+    };
+    let mu = cell.world.patch_mu;
+    Ok(Some(match shape {
+        PatchShape::Strip { at, width } => PatchRect {
+            u0: *at,
+            u1: at + width,
+            v0: -1e3,
+            v1: 1e3,
+            mu,
+        },
+        PatchShape::Track { foot, width } => {
+            let names = &ctx.robot.facts.feet.frames;
+            let Some(i) = names.iter().position(|n| n == foot) else {
+                return Err(format!(
+                    "patch '{}': field `foot` = '{foot}': allowed: one of the robot's feet ({})",
+                    cell.world.patch,
+                    names.join(", ")
+                ));
+            };
+            let (_, v) = foot_spots(ctx, ground, q0)[i];
+            PatchRect {
+                u0: -1.0,
+                u1: 1e3,
+                v0: v - 0.5 * width,
+                v1: v + 0.5 * width,
+                mu,
+            }
+        }
+    }))
+}
+// --- end issue 14 ---

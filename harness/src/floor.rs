@@ -63,6 +63,7 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
         com_shift_mm: 0.0,
         sensor_noise: 0.0,
         seed: 0,
+        world: Default::default(),
     };
     run_cell(
         &CellContext {

@@ -16,6 +16,7 @@ pub mod robot;
 pub mod run_folder;
 pub mod runner;
 pub mod scenario;
+pub mod scenario_world;
 pub mod tuning;
 
 pub use gripsweep_controllers as controllers;

@@ -33,6 +33,9 @@ pub struct Cell {
     pub sensor_noise: f64,
     /// Seed number, 0-based.
     pub seed: u32,
+    // --- issue 14 (world14): the world axes (crate::scenario_world) ---
+    pub world: crate::scenario_world::WorldCell,
+    // --- end issue 14 ---
 }
 
 impl Cell {
@@ -49,7 +52,7 @@ impl Cell {
             self.com_shift_mm,
             self.sensor_noise,
             self.seed
-        )
+        ) + &self.world.key_suffix() // issue 14 (world14): empty at the defaults
     }
 
     fn digest(&self) -> [u8; 32] {
@@ -80,6 +83,7 @@ pub fn expand(s: &Scenario) -> Vec<Cell> {
 /// bounds the size (a validated scenario has at most [`crate::limits::MAX_CELLS`] cells).
 pub fn expand_axes(a: &Axes, seeds: u32) -> Vec<Cell> {
     let mut out = Vec::with_capacity(a.len_product(seeds).unwrap_or(0));
+    let worlds = a.world.combos(); // issue 14 (world14)
     for &slope_deg in &a.slope_deg {
         for &mu in &a.mu {
             for &rate_hz in &a.rate_hz {
@@ -88,19 +92,23 @@ pub fn expand_axes(a: &Axes, seeds: u32) -> Vec<Cell> {
                         for &mass_scale in &a.mass_scale {
                             for &com_shift_mm in &a.com_shift_mm {
                                 for &sensor_noise in &a.sensor_noise {
-                                    for seed in 0..seeds {
-                                        out.push(Cell {
-                                            index: out.len(),
-                                            slope_deg,
-                                            mu,
-                                            rate_hz,
-                                            actuator,
-                                            controller: controller.clone(),
-                                            mass_scale,
-                                            com_shift_mm,
-                                            sensor_noise,
-                                            seed,
-                                        });
+                                    // issue 14 (world14): the world axes, before the seed
+                                    for world in &worlds {
+                                        for seed in 0..seeds {
+                                            out.push(Cell {
+                                                index: out.len(),
+                                                slope_deg,
+                                                mu,
+                                                rate_hz,
+                                                actuator,
+                                                controller: controller.clone(),
+                                                mass_scale,
+                                                com_shift_mm,
+                                                sensor_noise,
+                                                seed,
+                                                world: world.clone(),
+                                            });
+                                        }
                                     }
                                 }
                             }
@@ -135,6 +143,7 @@ mod tests {
             com_shift_mm: 0.0,
             sensor_noise: 0.0,
             seed,
+            world: Default::default(),
         }
     }
 

@@ -88,6 +88,7 @@ fn holds(s: &Scenario, robot: &LoadedRobot, g: &OnsetGroup, slope_deg: f64, limi
         com_shift_mm: a.com_shift_mm[0],
         sensor_noise: a.sensor_noise[0],
         seed: 0,
+        world: a.world.combos().swap_remove(0), // issue 14: the first world value of each axis
     };
     let out = run_cell(&CellContext { scenario: s, robot }, &cell, None);
     // Held means held and controlled: an infeasible or no-control run stayed up but what it

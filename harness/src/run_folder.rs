@@ -348,6 +348,7 @@ pub fn cells_of_manifest(m: &Value) -> Result<Vec<Cell>, String> {
         mass_scale: nums("mass_scale")?,
         com_shift_mm: nums("com_shift_mm")?,
         sensor_noise: nums("sensor_noise")?,
+        world: crate::scenario_world::WorldAxes::from_json(a)?, // issue 14 (world14)
     };
     let seeds = m["seeds"]
         .as_u64()

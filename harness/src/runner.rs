@@ -88,6 +88,13 @@ pub fn header() -> Vec<String> {
     h.push("status".into());
     h.push("message".into());
     h.extend(CellMetrics::COLUMNS.iter().map(|s| s.to_string()));
+    // --- issue 14 (world14): the world axes, appended after the metrics ---
+    h.extend(
+        crate::scenario_world::WORLD_AXIS_NAMES
+            .iter()
+            .map(|s| s.to_string()),
+    );
+    // --- end issue 14 ---
     h
 }
 
@@ -124,6 +131,7 @@ fn cell_record(cell: &Cell, out: &CellOutcome) -> Vec<String> {
     r.push(out.status.name().to_string());
     r.push(out.message.clone());
     r.extend(out.metrics.values().iter().map(|v| num(*v)));
+    r.extend(cell.world.columns()); // issue 14 (world14)
     r
 }
 
@@ -345,12 +353,12 @@ fn manifest(
         "seeds": s.seeds,
         "plant": { "dt_s": s.plant.dt, "substeps": s.plant.substeps, "contact_hz": s.plant.contact_hz,
                    "contact_damping": s.plant.contact_damping, "joint_limits": s.plant.joint_limits },
-        "axes": {
+        "axes": with_world_axes(&a.world, json!({
             "slope_deg": a.slope_deg, "mu": a.mu, "rate_hz": a.rate_hz,
             "actuator": a.actuator.iter().map(|k| k.name()).collect::<Vec<_>>(),
             "controller": a.controller, "mass_scale": a.mass_scale, "com_shift_mm": a.com_shift_mm,
             "sensor_noise": a.sensor_noise,
-        },
+        })),
         "cell_count": total,
         "shard": opts.shard.map(|(i, k)| json!({"index": i, "count": k, "cells": in_shard})),
         "slip_floor_mm": floor,
@@ -358,6 +366,16 @@ fn manifest(
         "finished_unix_s": Value::Null,
     })
 }
+
+// --- issue 14 (world14) ---
+/// The manifest's `axes` with the world axes added.
+fn with_world_axes(w: &crate::scenario_world::WorldAxes, mut axes: Value) -> Value {
+    if let Some(m) = axes.as_object_mut() {
+        m.extend(w.to_json());
+    }
+    axes
+}
+// --- end issue 14 ---
 
 /// The plan's friction limit on each slope (planner/limit.rs), for the manifest's
 /// `plan_limits`: one object per slope with `slope_deg`, `mu_required` (null when no friction
@@ -646,12 +664,20 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         })
         .collect();
     let plan_for = |deg: f64| plans.iter().find(|(d, _)| *d == deg).map(|(_, p)| p);
+    // issue 14 (world14): the shared plans face uphill; a cell with another heading plans its own.
+    let plan_for = |cell: &Cell| {
+        if cell.world.heading_deg == 0.0 {
+            plan_for(cell.slope_deg)
+        } else {
+            None
+        }
+    };
     man["plan_limits"] = plan_limits_json(&plans);
     write_manifest(out, &man).map_err(RunError::other)?;
     parallel_units(
         threads,
         &todo,
-        |cell| run_cell_with_plan(&ctx, cell, plan_for(cell.slope_deg), None),
+        |cell| run_cell_with_plan(&ctx, cell, plan_for(cell), None),
         |done_now, i, outcome| {
             let cell = todo[i];
             if outcome.status != CellStatus::Ok {

@@ -54,6 +54,14 @@ pub struct ScenarioFile {
     pub falls: FallsFile,
     #[serde(default)]
     pub onset: Option<OnsetFile>,
+    // --- issue 14 (world14): the world axes' named tables ---
+    #[serde(default)]
+    pub terrain: BTreeMap<String, crate::scenario_world::TerrainFile>,
+    #[serde(default)]
+    pub patch: BTreeMap<String, crate::scenario_world::PatchFile>,
+    #[serde(default)]
+    pub push: BTreeMap<String, crate::scenario_world::PushFile>,
+    // --- end issue 14 ---
 }
 
 fn default_robot() -> String {
@@ -219,6 +227,15 @@ pub struct AxesFile {
     pub mass_scale: Option<Vec<f64>>,
     pub com_shift_mm: Option<Vec<f64>>,
     pub sensor_noise: Option<Vec<f64>>,
+    // --- issue 14 (world14): the world axes (crate::scenario_world) ---
+    pub heading_deg: Option<Vec<f64>>,
+    pub terrain: Option<Vec<String>>,
+    pub patch: Option<Vec<String>>,
+    pub patch_mu: Option<Vec<f64>>,
+    pub patch_known: Option<Vec<bool>>,
+    pub push: Option<Vec<String>>,
+    pub mu_estimate_scale: Option<Vec<f64>>,
+    // --- end issue 14 ---
 }
 
 /// Sensor noise standard deviations at `sensor_noise = 1` (scaled by the axis value), and the
@@ -307,6 +324,10 @@ pub struct Scenario {
     pub noise: NoiseFile,
     pub falls: FallsFile,
     pub onset: Option<OnsetFile>,
+    // --- issue 14 (world14) ---
+    /// The `[terrain.<name>]`, `[patch.<name>]`, `[push.<name>]` tables.
+    pub world: crate::scenario_world::WorldTables,
+    // --- end issue 14 ---
 }
 
 #[derive(Clone, Debug, PartialEq)]
@@ -319,6 +340,9 @@ pub struct Axes {
     pub mass_scale: Vec<f64>,
     pub com_shift_mm: Vec<f64>,
     pub sensor_noise: Vec<f64>,
+    // --- issue 14 (world14) ---
+    pub world: crate::scenario_world::WorldAxes,
+    // --- end issue 14 ---
 }
 
 /// A scenario problem: message names the file and field.
@@ -707,6 +731,25 @@ impl Scenario {
         let laws = LawSettings::default();
         let (mu_estimate_scale, law_tables) = parse_law_tables(&file.laws, &controller, &rate_hz)
             .map_err(|(field, msg)| fail(&field, msg))?;
+        // --- issue 14 (world14) ---
+        let (world_axes, world_tables) = crate::scenario_world::parse(
+            &crate::scenario_world::WorldAxesFile {
+                heading_deg: &a.heading_deg,
+                terrain: &a.terrain,
+                patch: &a.patch,
+                patch_mu: &a.patch_mu,
+                patch_known: &a.patch_known,
+                push: &a.push,
+                mu_estimate_scale: &a.mu_estimate_scale,
+            },
+            &file.terrain,
+            &file.patch,
+            &file.push,
+            mu_estimate_scale,
+            MAX_AXIS_VALUES,
+        )
+        .map_err(|(field, msg)| fail(&field, msg))?;
+        // --- end issue 14 ---
         let n = &file.noise;
         for (field, v) in [
             ("noise.joint_angle", n.joint_angle),
@@ -789,7 +832,16 @@ impl Scenario {
             ("com_shift_mm", com_shift_mm.len()),
             ("sensor_noise", sensor_noise.len()),
             ("seeds", file.seeds as usize),
-        ];
+        ]
+        .into_iter()
+        // --- issue 14 (world14) ---
+        .chain(
+            crate::scenario_world::WORLD_AXIS_NAMES
+                .into_iter()
+                .zip(world_axes.lens()),
+        )
+        // --- end issue 14 ---
+        .collect::<Vec<_>>();
         let count = lens
             .iter()
             .try_fold(1usize, |n, (_, l)| n.checked_mul(*l))
@@ -831,7 +883,9 @@ impl Scenario {
                 mass_scale,
                 com_shift_mm,
                 sensor_noise,
+                world: world_axes,
             },
+            world: world_tables,
             noise: file.noise.clone(),
             falls: file.falls.clone(),
             onset: file.onset.clone(),
@@ -890,6 +944,9 @@ impl Axes {
             seeds as usize,
         ]
         .iter()
+        // --- issue 14 (world14) ---
+        .chain(self.world.lens().iter())
+        // --- end issue 14 ---
         .try_fold(1usize, |n, l| n.checked_mul(*l))
     }
 }

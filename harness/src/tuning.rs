@@ -292,6 +292,7 @@ impl Tuner<'_> {
             com_shift_mm: 0.0,
             sensor_noise: 0.0,
             seed: 0,
+            world: Default::default(),
         };
         let mut rows: Vec<TraceRow> = Vec::new();
         let out = run_cell_with_plan(
