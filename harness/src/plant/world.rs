@@ -312,15 +312,11 @@ impl Ground {
         // local y; vertex (i, j) at x = −lx/2 + j lx/ncols', z = −lz/2 + i lz/nrows'. Local x → t1
         // (u), y → n, z → −t2 (a right-handed frame), centred at (u_c, v_c).
         let (uc, vc) = (BUMP_U.0 + 0.5 * lu, 0.0);
-        let mut heights = Vec::with_capacity((nu + 1) * (nv + 1));
-        for i in 0..=nv {
+        let array = rapier3d::parry::utils::Array2::from_fn(nv + 1, nu + 1, |i, j| {
             let v = vc + 0.5 * lv - i as f64 * h;
-            for j in 0..=nu {
-                let u = uc - 0.5 * lu + j as f64 * h;
-                heights.push(b.height(u, v));
-            }
-        }
-        let array = rapier3d::parry::utils::Array2::new(nv + 1, nu + 1, heights);
+            let u = uc - 0.5 * lu + j as f64 * h;
+            b.height(u, v)
+        });
         let rot = Mat3::from_columns(&[self.t1, self.n, -self.t2]);
         let q = nalgebra::UnitQuaternion::from_rotation_matrix(
             &nalgebra::Rotation3::from_matrix_unchecked(rot),
