@@ -288,6 +288,14 @@ fn simulate(
     let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
     let mut acc =
         MetricsAccumulator::new(feet.len(), dt, cell.mu, start).with_torque_limits(&limits);
+    // issue 14 (world14): the metrics an unperceived world needs.
+    let mut world_acc = crate::world_metrics::WorldAccumulator::new(
+        feet.len(),
+        nj,
+        dt,
+        model.total_mass() * model.gravity.norm(),
+        push.as_ref().map(|_| push_start),
+    );
     let mut sample: PlanSample = plan.new_sample();
     let mut reached: PlanSample = plan.new_sample();
     let mut command = vec![0.0; nj];
@@ -344,6 +352,7 @@ fn simulate(
             );
             compute_us.push(t0.elapsed().as_secs_f64() * 1e6);
             acc.control_step(last_law);
+            world_acc.control_step(&command, cell.rate_hz);
             if command.iter().any(|x| !x.is_finite()) {
                 status = CellStatus::Diverged;
                 message = format!("the law returned a non-finite torque at t = {t:.3} s");
@@ -383,6 +392,12 @@ fn simulate(
             &applied,
             &v.as_slice()[6..],
             saturated,
+        );
+        world_acc.step(
+            t + dt,
+            &sample.stance,
+            plant.feet(),
+            crate::world_metrics::base_error(&base.trans, &plan_base.trans),
         );
         if let Some((rows, every_n)) = trace.as_mut()
             && step % *every_n == 0
@@ -454,7 +469,8 @@ fn simulate(
         }
     }
     let end = Vec3::new(q[0], q[1], q[2]);
-    let metrics = acc.finish(&end, &uphill, plan.planned_progress(), nj);
+    let mut metrics = acc.finish(&end, &uphill, plan.planned_progress(), nj);
+    metrics.world = world_acc.finish(plant.time());
     // Judge a run that stayed up: first whether the law controlled the robot at all, then
     // whether it met its own constraints (README, "Statuses").
     if status == CellStatus::Ok {

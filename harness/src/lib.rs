@@ -18,5 +18,6 @@ pub mod runner;
 pub mod scenario;
 pub mod scenario_world;
 pub mod tuning;
+pub mod world_metrics;
 
 pub use gripsweep_controllers as controllers;

@@ -138,6 +138,9 @@ pub struct CellMetrics {
     pub law_failed_share: f64,
     pub stance_off_ground_share: f64,
     pub torque_flip_rate_hz: f64,
+    /// issue 14 (world14): impacts, torque rate, push response, early/late steps
+    /// (`crate::world_metrics::COLUMNS`, written after these).
+    pub world: crate::world_metrics::WorldMetrics,
 }
 
 impl CellMetrics {
@@ -472,6 +475,7 @@ impl MetricsAccumulator {
             } else {
                 0.0
             },
+            world: Default::default(), // issue 14: filled by the cell
         }
     }
 }

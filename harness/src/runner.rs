@@ -88,7 +88,8 @@ pub fn header() -> Vec<String> {
     h.push("status".into());
     h.push("message".into());
     h.extend(CellMetrics::COLUMNS.iter().map(|s| s.to_string()));
-    // --- issue 14 (world14): the world axes, appended after the metrics ---
+    // --- issue 14 (world14): its metrics and the world axes, appended after the metrics ---
+    h.extend(crate::world_metrics::COLUMNS.iter().map(|s| s.to_string()));
     h.extend(
         crate::scenario_world::WORLD_AXIS_NAMES
             .iter()
@@ -131,7 +132,9 @@ fn cell_record(cell: &Cell, out: &CellOutcome) -> Vec<String> {
     r.push(out.status.name().to_string());
     r.push(out.message.clone());
     r.extend(out.metrics.values().iter().map(|v| num(*v)));
-    r.extend(cell.world.columns()); // issue 14 (world14)
+    // issue 14 (world14): its metrics, then the world axes
+    r.extend(out.metrics.world.values().iter().map(|v| num(*v)));
+    r.extend(cell.world.columns());
     r
 }
 
