@@ -117,8 +117,7 @@ fn block_on_a_friction_patch_obeys_coulombs_law_with_the_patch_mu() {
                 v1: 0.5,
                 mu: mu_p,
             };
-            let ground =
-                Ground::plane(angle, 0.0).with(&TerrainVariant::PLANE, 0, Some(patch));
+            let ground = Ground::plane(angle, 0.0).with(&TerrainVariant::PLANE, 0, Some(patch));
             assert_eq!(ground.friction_at(0.0, 0.0, ground_mu), mu_p);
             assert_eq!(ground.friction_at(0.0, 0.8, ground_mu), ground_mu);
             let (d_half, d_full) = block_on_ground(&ground, angle, ground_mu);
@@ -131,7 +130,9 @@ fn block_on_a_friction_patch_obeys_coulombs_law_with_the_patch_mu() {
                 );
             } else {
                 let a = (d_full - d_half) / (0.5 * (1.0 - 0.25));
-                eprintln!("patch μ {mu_p} (ground {ground_mu}), {angle:.2}°: a = {a:.5}, theory {a_theory:.5}");
+                eprintln!(
+                    "patch μ {mu_p} (ground {ground_mu}), {angle:.2}°: a = {a:.5}, theory {a_theory:.5}"
+                );
                 assert!(
                     (a - a_theory).abs() < 0.01 * a_theory,
                     "patch μ {mu_p}, {angle:.2}°: a = {a}, theory {a_theory}"

@@ -236,7 +236,10 @@ impl WorldAxes {
                 .as_array()
                 .ok_or("field `axes.patch_known`: not a list")?
                 .iter()
-                .map(|x| x.as_bool().ok_or("field `axes.patch_known`: not true/false"))
+                .map(|x| {
+                    x.as_bool()
+                        .ok_or("field `axes.patch_known`: not true/false")
+                })
                 .collect::<Result<_, _>>()?,
         };
         let w = WorldAxes {
@@ -439,8 +442,16 @@ pub fn parse(
         )?;
         let shape = match f.kind.as_str() {
             "strip" => {
-                let at = f.at.ok_or((field("at"), "missing: a strip needs `at` (m along the path)".to_string()))?;
-                finite_in(&field("at"), at, (-1.0..=100.0).contains(&at), "−1 to 100 m")?;
+                let at = f.at.ok_or((
+                    field("at"),
+                    "missing: a strip needs `at` (m along the path)".to_string(),
+                ))?;
+                finite_in(
+                    &field("at"),
+                    at,
+                    (-1.0..=100.0).contains(&at),
+                    "−1 to 100 m",
+                )?;
                 PatchShape::Strip { at, width }
             }
             "track" => {
@@ -451,10 +462,7 @@ pub fn parse(
                 PatchShape::Track { foot, width }
             }
             other => {
-                return Err((
-                    field("kind"),
-                    format!("'{other}': allowed: strip, track"),
-                ));
+                return Err((field("kind"), format!("'{other}': allowed: strip, track")));
             }
         };
         t.patch.insert(name.clone(), shape);
@@ -472,10 +480,7 @@ pub fn parse(
             "impulse" => true,
             "force" => false,
             other => {
-                return Err((
-                    field("kind"),
-                    format!("'{other}': allowed: impulse, force"),
-                ));
+                return Err((field("kind"), format!("'{other}': allowed: impulse, force")));
             }
         };
         finite_in(
@@ -501,7 +506,12 @@ pub fn parse(
             (false, None) => {
                 return Err((field("duration_s"), "missing: a force needs it".into()));
             }
-            (false, Some(d)) => finite_in(&field("duration_s"), d, d > 0.0 && d <= 10.0, "0 < duration ≤ 10 s")?,
+            (false, Some(d)) => finite_in(
+                &field("duration_s"),
+                d,
+                d > 0.0 && d <= 10.0,
+                "0 < duration ≤ 10 s",
+            )?,
         };
         if f.cycle > 1000 {
             return Err((field("cycle"), format!("{}: allowed: 0 to 1000", f.cycle)));

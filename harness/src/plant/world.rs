@@ -420,7 +420,12 @@ impl Terrain for Ground {
                     _ => cell_mu,
                 };
                 let top = self.offset(um, vm);
-                out.push(colliders.insert(self.ground_box((wu[0], wu[1]), (wv[0], wv[1]), top, mu)));
+                out.push(colliders.insert(self.ground_box(
+                    (wu[0], wu[1]),
+                    (wv[0], wv[1]),
+                    top,
+                    mu,
+                )));
             }
         }
         out
