@@ -919,6 +919,24 @@ impl Scenario {
                     self.source
                 ))
             })?;
+            // --- issue 14 (world14): every heading of `axes.heading_deg` too ---
+            for &psi in self.axes.world.heading_deg.iter().filter(|&&h| h != 0.0) {
+                let ground = crate::plant::world::Ground::plane(deg, psi);
+                crate::planner::Plan::build(
+                    &robot.model,
+                    &robot.facts,
+                    &ground,
+                    &self.gait,
+                    self.duration,
+                )
+                .map_err(|e| {
+                    ScenarioError(format!(
+                        "{}: fields `gait` and `duration` on the {deg}° slope at heading {psi}° of `axes.heading_deg`: {e}",
+                        self.source
+                    ))
+                })?;
+            }
+            // --- end issue 14 ---
         }
         Ok(())
     }

@@ -97,10 +97,17 @@ pub enum Metric {
     LawFailedShare,
     StanceOffGroundShare,
     TorqueFlipRate,
+    // issue 14 (world14): crate::world_metrics::COLUMNS
+    TouchdownForcePeak,
+    TorqueRatePeak,
+    PushDisplacement,
+    PushRecovery,
+    StepEarlyShare,
+    StepLateShare,
 }
 
 impl Metric {
-    pub const ALL: [Metric; 23] = [
+    pub const ALL: [Metric; 29] = [
         Metric::SimTime,
         Metric::SlipMean,
         Metric::SlipMax,
@@ -124,6 +131,12 @@ impl Metric {
         Metric::LawFailedShare,
         Metric::StanceOffGroundShare,
         Metric::TorqueFlipRate,
+        Metric::TouchdownForcePeak,
+        Metric::TorqueRatePeak,
+        Metric::PushDisplacement,
+        Metric::PushRecovery,
+        Metric::StepEarlyShare,
+        Metric::StepLateShare,
     ];
 
     /// Column name in `cells.csv` (and metric name in `summary.csv`).
@@ -152,6 +165,12 @@ impl Metric {
             Metric::LawFailedShare => "law_failed_share",
             Metric::StanceOffGroundShare => "stance_off_ground_share",
             Metric::TorqueFlipRate => "torque_flip_rate_hz",
+            Metric::TouchdownForcePeak => "touchdown_force_peak_bw",
+            Metric::TorqueRatePeak => "torque_rate_peak_nm_per_s",
+            Metric::PushDisplacement => "push_displacement_mm",
+            Metric::PushRecovery => "push_recovery_s",
+            Metric::StepEarlyShare => "step_early_share",
+            Metric::StepLateShare => "step_late_share",
         }
     }
 
@@ -166,6 +185,12 @@ impl Metric {
                 | Metric::LawFailedShare
                 | Metric::StanceOffGroundShare
                 | Metric::TorqueFlipRate
+                | Metric::TouchdownForcePeak
+                | Metric::TorqueRatePeak
+                | Metric::PushDisplacement
+                | Metric::PushRecovery
+                | Metric::StepEarlyShare
+                | Metric::StepLateShare
         )
     }
 
