@@ -1,11 +1,11 @@
 //! The world the plan does not know (issue 14): the ground a cell's plant stands on when it
 //! differs from the nominal plane the planner plans on, and the pushes on the trunk.
 //!
-//! * Heading: the slope's uphill direction is turned about the vertical by −ψ, so the robot,
-//!   which the planner always lays out along world +x projected onto the ground (the terrain's
-//!   `surface_frame`), walks at heading ψ from straight uphill (ψ = 90°: across the slope with
-//!   the uphill side on its right). The plan and the controllers' ground normal follow because
-//!   both read this terrain.
+//! * Heading: the slope's uphill direction is turned about the vertical by −ψ, and the
+//!   terrain's `surface_frame` (which the planner lays the gait out along) points its t1 at ψ
+//!   from uphill within the plane (ψ = 90°: across the slope with the uphill side on the
+//!   robot's right; the path then climbs at asin(sin θ cos ψ)). The plan and the controllers'
+//!   ground normal follow because both read this terrain.
 //! * An unperceived step: beyond the line at distance `step_at` along the path (plane
 //!   coordinate u, along the walking direction t1 in the tangent plane), the ground is the
 //!   nominal plane moved by `step_height` along its normal (up > 0, down < 0); the riser is
@@ -195,8 +195,18 @@ impl Ground {
         } else {
             Vec3::new(-sa * heading.cos(), sa * heading.sin(), ca)
         };
-        let ex = Vec3::x();
-        let t1 = (ex - n * n.dot(&ex)).normalize();
+        // The walking direction: in the plane, ψ from uphill u towards n × u (ψ = 90°: the
+        // uphill side on the robot's right).
+        let u = Vec3::new(
+            slope.angle.cos() * heading.cos(),
+            -slope.angle.cos() * heading.sin(),
+            slope.angle.sin(),
+        );
+        let t1 = if heading == 0.0 {
+            slope.surface_frame(0.0, 0.0).1
+        } else {
+            (u * heading.cos() + n.cross(&u) * heading.sin()).normalize()
+        };
         let t2 = n.cross(&t1);
         Ground {
             slope,
@@ -487,9 +497,12 @@ mod tests {
         let up = g.uphill();
         assert!(up.y < -0.9 && up.dot(&g.n).abs() < 1e-12);
         assert!((g.height_at(0.0, -1.0) - 20f64.to_radians().tan()).abs() < 1e-12);
-        // Diagonal: the path climbs at asin(sin θ cos ψ).
+        // Diagonal: a line in the plane at ψ from its line of steepest slope climbs at
+        // asin(sin θ cos ψ) (its rise per length along it is sin θ cos ψ).
         let g = Ground::plane(20.0, 45.0);
         let want = (20f64.to_radians().sin() * 45f64.to_radians().cos()).asin();
+        // … and makes the angle ψ with uphill inside the plane.
+        assert!((g.forward().dot(&g.uphill()) - 45f64.to_radians().cos()).abs() < 1e-12);
         assert!((g.forward().z.asin() - want).abs() < 1e-12);
     }
 
