@@ -11,12 +11,12 @@
 
 use gripsweep::matrix::expand;
 use gripsweep::metrics::CellMetrics;
+use gripsweep::run_format::{Manifest, ShardInfo};
 use gripsweep::runner::{self, CELLS_FILE, MANIFEST_FILE, TIMING_FILE};
 use gripsweep::scenario::Scenario;
 use rand::SeedableRng;
 use rand::seq::SliceRandom;
 use rand_chacha::ChaCha8Rng;
-use serde_json::json;
 use std::path::Path;
 use std::time::Instant;
 
@@ -44,21 +44,8 @@ fn main() {
     let mut rows: Vec<Vec<String>> = cells
         .iter()
         .map(|c| {
-            let mut r = vec![
-                c.id(),
-                c.index.to_string(),
-                format!("{}", c.slope_deg),
-                format!("{}", c.mu),
-                format!("{}", c.rate_hz),
-                c.actuator.name().to_string(),
-                c.controller.clone(),
-                format!("{}", c.mass_scale),
-                format!("{}", c.com_shift_mm),
-                format!("{}", c.sensor_noise),
-                c.seed.to_string(),
-                "ok".into(),
-                String::new(),
-            ];
+            let mut r: Vec<String> = c.identity(c.id()).into_iter().map(|(_, v)| v).collect();
+            r.extend(["ok".into(), String::new()]);
             r.extend(
                 (0..CellMetrics::COLUMNS.len())
                     .map(|k| format!("{}", 0.1234567 * (k + c.index) as f64)),
@@ -87,23 +74,37 @@ fn main() {
         std::env::temp_dir().join(format!("gripsweep-bench-run-folder-{}", std::process::id()));
     let _ = std::fs::remove_dir_all(&root);
     let inputs = runner::manifest_inputs(&s, &robot);
-    let a = &s.axes;
-    let manifest = |shard: Option<(usize, usize, usize)>| {
-        json!({
-            "tool": "gripsweep",
-            "inputs": inputs,
-            "seeds": s.seeds,
-            "axes": {
-                "slope_deg": a.slope_deg, "mu": a.mu, "rate_hz": a.rate_hz,
-                "actuator": a.actuator.iter().map(|k| k.name()).collect::<Vec<_>>(),
-                "controller": a.controller, "mass_scale": a.mass_scale,
-                "com_shift_mm": a.com_shift_mm, "sensor_noise": a.sensor_noise,
-            },
-            "cell_count": cells.len(),
-            "shard": shard.map(|(i, k, n)| json!({"index": i, "count": k, "cells": n})),
-            "slip_floor_mm": 0.02,
-            "finished_unix_s": 1.0,
-        })
+    let manifest = |shard: Option<(usize, usize, usize)>| Manifest {
+        tool: "gripsweep".into(),
+        tool_version: "bench".into(),
+        scenario_name: s.name.clone(),
+        scenario_source: s.source.clone(),
+        scenario_sha256: String::new(),
+        inputs: inputs.clone(),
+        scenario_text: s.text.clone(),
+        robot_source: robot.source.clone(),
+        robot_facts_sha256: String::new(),
+        robot_urdf_sha256: String::new(),
+        gait: String::new(),
+        duration_s: s.duration,
+        seeds: s.seeds,
+        plant: serde_json::Value::Null,
+        axes: Manifest::axes_field(&s.axes.values),
+        cell_count: cells.len(),
+        shard: shard.map(|(index, count, cells)| ShardInfo {
+            index,
+            count,
+            cells,
+        }),
+        slip_floor_mm: Some(0.02),
+        slip_locked_mm: None,
+        slip_floor_implausible: false,
+        gains_sha256: None,
+        onset_groups: None,
+        plan_limits: serde_json::Value::Null,
+        merged_from: None,
+        started_unix_s: 0.0,
+        finished_unix_s: Some(1.0),
     };
     let write_folder = |dir: &Path, rows: &[Vec<String>], timing: &[Vec<String>], shard| {
         std::fs::create_dir_all(dir).unwrap();

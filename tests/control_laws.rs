@@ -1,4 +1,4 @@
-//! Checks of the control laws on states of the demo quadruped (DESIGN.md, "Control laws"):
+//! Checks of the control laws on states of the demo quadruped:
 //! consistency with the constrained dynamics, optimality of each law's own criterion, the cone
 //! program's constraints and its infeasibility report.
 
@@ -274,7 +274,7 @@ fn load_normalised_cost_evens_out_the_friction_ratio_on_a_slope() {
         // Every foot force parallel to gravity is the slip-optimal static distribution, with
         // ratio tan θ at every foot. Frozen 1/f̂² weights make each foot's tangential force
         // ∝ f̂², so the ratios grow with the load: the load-normalised law lands within 25 % of
-        // tan θ (the prototype in DESIGN.md measured 0.318 against 0.268 at 15°, +19 %).
+        // tan θ (an earlier prototype of this law measured 0.318 against 0.268 at 15°, +19 %).
         assert!(
             load >= tan - 1e-9 && load < 1.25 * tan,
             "{deg}°: load-normalised max ratio {load}, tan θ {tan}"

@@ -26,19 +26,7 @@ fn scenario(gait: &str, duration: f64) -> Scenario {
 }
 
 fn cell(slope_deg: f64, mu: f64, controller: &str) -> Cell {
-    Cell {
-        index: 0,
-        slope_deg,
-        mu,
-        rate_hz: 1000.0,
-        actuator: ActuatorKind::Ideal,
-        controller: controller.into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-        world: Default::default(),
-    }
+    Cell::probe(mu, 1000.0, ActuatorKind::Ideal, controller).set("slope_deg", slope_deg)
 }
 
 fn run_all(s: &Scenario, cells: &[Cell]) -> Vec<CellOutcome> {
@@ -66,7 +54,7 @@ fn every_law_stands_and_crawls_for_ten_seconds_on_good_ground() {
         for (c, out) in cells.iter().zip(run_all(&s, &cells)) {
             eprintln!(
                 "{gait} {}: {} — base {:.2} mm, orientation {:.3}°, joints {:.3}° RMS; slip {:.4} mm/phase",
-                c.controller,
+                c.controller(),
                 out.status.name(),
                 out.metrics.base_pos_rms_mm,
                 out.metrics.base_orient_rms_deg,
@@ -80,13 +68,13 @@ fn every_law_stands_and_crawls_for_ten_seconds_on_good_ground() {
             // at the ground point, 133 mm at the sphere centre, when written) that the
             // tracking test calls it `no-control` on the crawl: it stays up but is not ranked.
             let drifted = gait == "crawl"
-                && c.controller == "id-lean"
+                && c.controller() == "id-lean"
                 && out.status == CellStatus::NoControl
                 && out.message.contains("off the plan");
             assert!(
                 out.status == CellStatus::Ok || drifted,
                 "{gait} {}: {} {}",
-                c.controller,
+                c.controller(),
                 out.status.name(),
                 out.message
             );
@@ -94,14 +82,14 @@ fn every_law_stands_and_crawls_for_ten_seconds_on_good_ground() {
             assert!(
                 out.metrics.base_pos_rms_mm < 250.0,
                 "{gait} {}: base error {} mm",
-                c.controller,
+                c.controller(),
                 out.metrics.base_pos_rms_mm
             );
             if gait == "stand" {
                 assert!(
                     out.metrics.base_pos_rms_mm < 1.0,
                     "{}: standing base error {} mm",
-                    c.controller,
+                    c.controller(),
                     out.metrics.base_pos_rms_mm
                 );
             }
@@ -124,13 +112,14 @@ fn slip_on_flat_good_ground_stays_near_the_floor() {
     for (c, out) in cells.iter().zip(run_all(&s, &cells)) {
         eprintln!(
             "flat μ = 1, {}: {:.4} mm per stance phase (floor {floor:.4})",
-            c.controller, out.metrics.slip_mean_mm
+            c.controller(),
+            out.metrics.slip_mean_mm
         );
         assert_eq!(out.status, CellStatus::Ok);
         assert!(
             out.metrics.slip_mean_mm < floor + margin,
             "{}: {}",
-            c.controller,
+            c.controller(),
             out.metrics.slip_mean_mm
         );
     }
@@ -144,14 +133,14 @@ fn beyond_the_friction_angle_every_law_slips_or_falls() {
     for (c, out) in cells.iter().zip(run_all(&s, &cells)) {
         eprintln!(
             "22°, μ 0.3, {}: {} slip {:.1} mm",
-            c.controller,
+            c.controller(),
             out.status.name(),
             out.metrics.slip_total_mm
         );
         assert!(
             out.status == CellStatus::Fell || out.metrics.slip_total_mm > 100.0,
             "{}: held on a slope steeper than the friction angle ({} mm)",
-            c.controller,
+            c.controller(),
             out.metrics.slip_total_mm
         );
     }

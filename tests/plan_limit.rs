@@ -126,7 +126,7 @@ fn within_stated_factor(mu_required: f64, deg: f64) -> bool {
 fn default_crawl_stays_within_the_stated_factor_of_tan_theta() {
     let s = gripsweep::scenario::Scenario::default_embedded().expect("default scenario");
     let robot = brindle();
-    for &deg in &s.axes.slope_deg {
+    for deg in s.axes.numbers("slope_deg") {
         let (p, slope) = plan(robot, deg, &s.gait, s.duration);
         let l = plan_limit(&p, &slope).expect("limit");
         assert!(

@@ -222,19 +222,7 @@ fn a_stiff_pd_unstable_at_its_rate_is_not_ok() {
         None,
     )
     .unwrap();
-    let mut cell = Cell {
-        index: 0,
-        slope_deg: 0.0,
-        mu: 0.8,
-        rate_hz: 250.0,
-        actuator: ActuatorKind::Ideal,
-        controller: "stiff-pd".into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-        world: Default::default(),
-    };
+    let cell = Cell::probe(0.8, 250.0, ActuatorKind::Ideal, "stiff-pd");
     let ctx = CellContext {
         scenario: &s,
         robot: &robot,
@@ -252,7 +240,7 @@ fn a_stiff_pd_unstable_at_its_rate_is_not_ok() {
     assert!(out.message.contains("test:"), "{}", out.message);
     assert!((out.metrics.law_solved_share - 1.0).abs() < 1e-12);
     // The same law at the plant rate controls the robot.
-    cell.rate_hz = 1000.0;
+    let cell = cell.set("rate_hz", 1000.0);
     let out = run_cell(&ctx, &cell, None);
     assert_eq!(out.status, CellStatus::Ok, "{}", out.message);
     assert!(out.metrics.torque_flip_rate_hz < 20.0);

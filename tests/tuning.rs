@@ -89,15 +89,15 @@ mu = [1.0]
                 out.status,
                 CellStatus::Ok,
                 "{kind} at {} Hz, {}: {}",
-                cell.rate_hz,
-                cell.actuator.name(),
+                cell.rate_hz(),
+                cell.actuator().name(),
                 out.message
             );
             assert!(
                 out.metrics.torque_limit_share < 0.05,
                 "{kind} at {} Hz, {}: at the torque limit {:.1} % of the time",
-                cell.rate_hz,
-                cell.actuator.name(),
+                cell.rate_hz(),
+                cell.actuator().name(),
                 100.0 * out.metrics.torque_limit_share
             );
         }

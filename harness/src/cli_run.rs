@@ -1,8 +1,9 @@
 //! The run-side commands (`run`, `check`, `trace`, `report`, `merge`) as library functions:
 //! flags in, text out, errors with the exit code they deserve.
 
-use crate::cell::{CellContext, TraceRow, run_cell};
+use crate::cell::{CellContext, CellSpec, TraceRow, run_cell, run_spec};
 use crate::matrix::{Cell, expand};
+use crate::run_format::AxisValue;
 use crate::runner::{RunError, RunOptions, merge, run};
 use crate::scenario::Scenario;
 use clap::Args;
@@ -220,24 +221,20 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
     // A probe of a fixed number of plant steps, so `check` answers in bounded time whatever
     // the step size.
     let probe = (crate::limits::CHECK_PROBE_STEPS as f64 * s.plant.dt).min(s.duration);
-    let mut short = s.clone();
-    short.duration = probe;
-    short.gait = crate::planner::Gait::Stand;
     let mut per_controller = Vec::new();
-    for c in &s.axes.controller {
+    for c in &s.axes.names("controller") {
         let cell = cells
             .iter()
-            .find(|x| &x.controller == c)
+            .find(|x| x.controller() == c)
             .expect("every controller has cells");
+        // The cell's own setup, standing for the probe's length.
+        let spec = CellSpec {
+            duration: probe,
+            gait: crate::planner::Gait::Stand,
+            ..CellSpec::of(&s, cell)
+        };
         let t0 = Instant::now();
-        run_cell(
-            &CellContext {
-                scenario: &short,
-                robot: &robot,
-            },
-            cell,
-            None,
-        );
+        run_spec(&robot, cell, &spec, None, None);
         per_controller.push((c.clone(), t0.elapsed().as_secs_f64() / probe));
     }
     let total_s: f64 = cells
@@ -245,7 +242,7 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
         .map(|c| {
             per_controller
                 .iter()
-                .find(|(n, _)| *n == c.controller)
+                .find(|(n, _)| n == c.controller())
                 .map(|x| x.1)
                 .unwrap_or(0.0)
                 * s.duration
@@ -253,24 +250,22 @@ pub fn cmd_check(a: &CheckArgs) -> Result<String, RunError> {
         .sum::<f64>()
         / threads as f64;
     let mut text = format!(
-        "{}: valid.\n{} cells ({} slopes × {} μ × {} rates × {} actuators × {} controllers × {} mass scales × {} CoM shifts × {} noise levels × {} seeds), {} s each.\n",
+        "{}: valid.\n{} cells ({} × {} seeds), {} s each.\n",
         s.source,
         cells.len(),
-        s.axes.slope_deg.len(),
-        s.axes.mu.len(),
-        s.axes.rate_hz.len(),
-        s.axes.actuator.len(),
-        s.axes.controller.len(),
-        s.axes.mass_scale.len(),
-        s.axes.com_shift_mm.len(),
-        s.axes.sensor_noise.len(),
+        crate::run_format::AXES
+            .iter()
+            .zip(&s.axes.values)
+            .map(|(a, v)| format!("{} {}", v.len(), a.name))
+            .collect::<Vec<_>>()
+            .join(" × "),
         s.seeds,
         s.duration
     );
     // The plan's own limit per slope (planner/limit.rs): the friction and torque share any
     // law needs at least.
     text.push_str("The plan's limit (least friction any force distribution needs; share of the torque limits it then takes):\n");
-    for &deg in &s.axes.slope_deg {
+    for deg in s.axes.numbers("slope_deg") {
         let slope = crate::plant::terrain::Slope::degrees(deg);
         let line =
             crate::planner::Plan::build(&robot.model, &robot.facts, &slope, &s.gait, s.duration)
@@ -314,36 +309,31 @@ fn fmt_mu(x: f64) -> String {
 /// The cell of the scenario matching `picks` (AXIS=VALUE); unspecified axes: first value.
 pub fn pick_cell(s: &Scenario, picks: &[String]) -> Result<Cell, RunError> {
     let mut want: Vec<(String, String)> = Vec::new();
-    const AXES: [&str; 9] = crate::matrix::AXIS_NAMES;
+    let names = crate::run_format::axis_columns();
     for p in picks {
         let Some((k, v)) = p.split_once('=') else {
             return Err(RunError::input(format!(
                 "--pick {p}: allowed: AXIS=VALUE with AXIS one of {}",
-                AXES.join(", ")
+                names.join(", ")
             )));
         };
-        if !AXES.contains(&k.trim()) {
+        if !names.contains(&k.trim()) {
             return Err(RunError::input(format!(
                 "--pick {p}: unknown axis '{}'; allowed: {}",
                 k.trim(),
-                AXES.join(", ")
+                names.join(", ")
             )));
         }
         want.push((k.trim().to_string(), v.trim().to_string()));
     }
     let matches = |c: &Cell| {
         want.iter().all(|(k, v)| {
-            let num = |x: f64| v.parse::<f64>().is_ok_and(|w| (w - x).abs() < 1e-9);
-            match k.as_str() {
-                "slope_deg" => num(c.slope_deg),
-                "mu" => num(c.mu),
-                "rate_hz" => num(c.rate_hz),
-                "actuator" => c.actuator.name() == v,
-                "controller" => c.controller == *v,
-                "mass_scale" => num(c.mass_scale),
-                "com_shift_mm" => num(c.com_shift_mm),
-                "sensor_noise" => num(c.sensor_noise),
-                _ => v.parse::<u32>().is_ok_and(|w| w == c.seed),
+            let Some(i) = crate::run_format::axis_index(k) else {
+                return v.parse::<u32>().is_ok_and(|w| w == c.seed);
+            };
+            match &c.values[i] {
+                AxisValue::Number(x) => v.parse::<f64>().is_ok_and(|w| (w - x).abs() < 1e-9),
+                AxisValue::Name(n) => n == v,
             }
         })
     };
@@ -380,9 +370,11 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
     let cell = pick_cell(&s, &a.pick)?;
     // The cell runs with the gains `run` would give it: tune its one combination.
     let mut one = s.clone();
-    one.axes.rate_hz = vec![cell.rate_hz];
-    one.axes.actuator = vec![cell.actuator];
-    one.axes.controller = vec![cell.controller.clone()];
+    one.axes = one
+        .axes
+        .with("rate_hz", vec![cell.rate_hz().into()])
+        .with("actuator", vec![cell.actuator().name().into()])
+        .with("controller", vec![cell.controller().into()]);
     let table = crate::tuning::tune(&one, &robot, None).map_err(RunError::input)?;
     let mut s = s;
     table.apply(&mut s);
@@ -412,8 +404,8 @@ pub fn cmd_trace(a: &TraceArgs) -> Result<String, RunError> {
                 cell_key: &cell.key(),
                 status: out.status.name(),
                 message: &out.message,
-                slope_deg: cell.slope_deg,
-                mu: cell.mu,
+                slope_deg: cell.slope_deg(),
+                mu: cell.mu(),
                 row_dt: a.every as f64 * s.plant.dt,
                 csv_name: &csv_name,
             },

@@ -15,7 +15,7 @@
 //!   contact behaviour a controlled robot sees (0.01–0.02 mm under the tuned PD), so it is
 //!   recorded for inspection but does not set the floor.
 
-use crate::cell::{CellContext, run_cell};
+use crate::cell::{CellSpec, run_spec};
 use crate::matrix::Cell;
 use crate::metrics::MetricsAccumulator;
 use crate::planner::{Gait, Plan};
@@ -44,37 +44,24 @@ pub fn slip_floor(s: &Scenario, robot: &LoadedRobot) -> f64 {
     let mut standing = s.clone();
     standing.law_tables.clear();
     standing.tuned.clear();
-    standing.axes.rate_hz = vec![plant_rate];
-    standing.axes.actuator = vec![ActuatorKind::Ideal];
-    standing.axes.controller = vec!["stiff-pd".into()];
+    standing.axes = standing
+        .axes
+        .with("rate_hz", vec![plant_rate.into()])
+        .with("actuator", vec![ActuatorKind::Ideal.name().into()])
+        .with("controller", vec!["stiff-pd".into()]);
     let Ok(table) = crate::tuning::tune(&standing, robot, Some(1)) else {
         return f64::NAN;
     };
     table.apply(&mut standing);
-    standing.gait = Gait::Stand;
-    let cell = Cell {
-        index: 0,
-        slope_deg: 0.0,
-        mu: 1.0,
-        rate_hz: plant_rate,
-        actuator: ActuatorKind::Ideal,
-        controller: "stiff-pd".into(),
-        mass_scale: 1.0,
-        com_shift_mm: 0.0,
-        sensor_noise: 0.0,
-        seed: 0,
-        world: Default::default(),
+    let cell = Cell::probe(1.0, plant_rate, ActuatorKind::Ideal, "stiff-pd");
+    // The scenario's robot and plant settings, standing, with the gains just tuned.
+    let spec = CellSpec {
+        gait: Gait::Stand,
+        ..CellSpec::of(&standing, &cell)
     };
-    run_cell(
-        &CellContext {
-            scenario: &standing,
-            robot,
-        },
-        &cell,
-        None,
-    )
-    .metrics
-    .slip_mean_mm
+    run_spec(robot, &cell, &spec, None, None)
+        .metrics
+        .slip_mean_mm
 }
 
 /// The stand with every joint locked by the engine and no controller, mm per stance phase

@@ -14,6 +14,7 @@ pub mod plant;
 pub mod report;
 pub mod robot;
 pub mod run_folder;
+pub mod run_format;
 pub mod runner;
 pub mod scenario;
 pub mod scenario_world;
@@ -21,3 +22,6 @@ pub mod tuning;
 pub mod world_metrics;
 
 pub use gripsweep_controllers as controllers;
+
+#[cfg(test)]
+mod axis_table_tests;

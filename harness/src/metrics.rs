@@ -1,28 +1,13 @@
-//! Per-cell metrics, accumulated every physics step (DESIGN.md, "Metrics"). Nothing here
+//! Per-cell metrics, accumulated every physics step (README, "Outputs", says what each
+//! column measures; the column list itself is `run_format::METRICS`). Nothing here
 //! allocates per step once built.
 
 use crate::plant::FootReading;
 use gripsweep_controllers::laws::LawStatus;
 use gripsweep_controllers::spatial::{Mat3, Vec3, so3_log};
 
-/// How a cell ended.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub enum CellStatus {
-    Ok,
-    /// The law reported it could not satisfy its constraints on more than
-    /// [`INFEASIBLE_SHARE`] of its control steps (the robot stayed up).
-    Infeasible,
-    /// The robot stayed up to the end but the law did not control it: the torques sat at
-    /// their limits, the base drifted far from the plan, or a joint's torque oscillated (see
-    /// [`NoControlTests`]).
-    NoControl,
-    /// Trunk low, trunk or leg touching the ground, or tilted beyond the limit.
-    Fell,
-    /// Non-finite state or the engine quarantined a body.
-    Diverged,
-    /// The cell could not be set up (e.g. the plan does not fit the slope).
-    Error,
-}
+/// How a cell ended: the one outcome enum of the run format.
+pub use crate::run_format::Outcome as CellStatus;
 
 /// Share of control steps with a law reporting trouble above which a cell is "infeasible".
 pub const INFEASIBLE_SHARE: f64 = 0.05;
@@ -87,31 +72,6 @@ pub fn law_share_text(m: &CellMetrics) -> String {
     )
 }
 
-impl CellStatus {
-    pub fn name(self) -> &'static str {
-        match self {
-            CellStatus::Ok => "ok",
-            CellStatus::Infeasible => "infeasible",
-            CellStatus::NoControl => "no-control",
-            CellStatus::Fell => "fell",
-            CellStatus::Diverged => "diverged",
-            CellStatus::Error => "error",
-        }
-    }
-    pub fn parse(s: &str) -> Option<CellStatus> {
-        [
-            CellStatus::Ok,
-            CellStatus::Infeasible,
-            CellStatus::NoControl,
-            CellStatus::Fell,
-            CellStatus::Diverged,
-            CellStatus::Error,
-        ]
-        .into_iter()
-        .find(|c| c.name() == s)
-    }
-}
-
 /// The numbers of one cell (the metric columns of `cells.csv`, in order).
 #[derive(Clone, Debug, Default, PartialEq)]
 pub struct CellMetrics {
@@ -144,33 +104,12 @@ pub struct CellMetrics {
 }
 
 impl CellMetrics {
-    pub const COLUMNS: [&'static str; 23] = [
-        "sim_time_s",
-        "slip_mean_mm",
-        "slip_max_mm",
-        "slip_total_mm",
-        "stance_phases",
-        "base_pos_rms_mm",
-        "base_orient_rms_deg",
-        "joint_rms_deg",
-        "progress_m",
-        "progress_planned_m",
-        "torque_rms_nm",
-        "torque_peak_nm",
-        "torque_limit_share",
-        "energy_j",
-        "friction_use_max",
-        "friction_over_share",
-        "law_trouble_share",
-        "law_solved_share",
-        "law_infeasible_share",
-        "law_underactuated_share",
-        "law_failed_share",
-        "stance_off_ground_share",
-        "torque_flip_rate_hz",
-    ];
+    /// The metric columns, in file order: the run format's [`crate::run_format::METRICS`]
+    /// (`values` must follow it; a test checks the count).
+    pub const COLUMNS: [&'static str; 29] = crate::run_format::metric_columns();
 
-    pub fn values(&self) -> [f64; 23] {
+    pub fn values(&self) -> [f64; 29] {
+        let w = self.world.values();
         [
             self.sim_time_s,
             self.slip_mean_mm,
@@ -195,6 +134,12 @@ impl CellMetrics {
             self.law_failed_share,
             self.stance_off_ground_share,
             self.torque_flip_rate_hz,
+            w[0],
+            w[1],
+            w[2],
+            w[3],
+            w[4],
+            w[5],
         ]
     }
 }
@@ -202,7 +147,7 @@ impl CellMetrics {
 /// Friction usage above this counts as "at the limit" (a sliding contact sits at exactly 1).
 const AT_LIMIT: f64 = 0.99;
 
-/// Slip of a planned-stance foot (DESIGN.md, "Metrics"; README, "Metrics columns").
+/// Slip of a planned-stance foot (README, "Outputs": `slip_mean_mm`).
 ///
 /// For each planned stance phase the accumulator integrates the tangential velocity of the
 /// foot sphere's material point at the ground contact, c − r n (c the centre, r the radius,

@@ -6,13 +6,13 @@
 
 use crate::cell::{CellContext, run_cell};
 use crate::matrix::Cell;
-use crate::metrics::CellStatus;
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
+use crate::run_format::Outcome;
 use crate::scenario::{OnsetFile, Scenario};
 use sha2::{Digest, Sha256};
 
-pub const ONSET_FILE: &str = "onset.csv";
+pub use crate::run_format::ONSET_FILE;
 pub const ONSET_COLUMNS: [&str; 9] = [
     "group_id",
     "index",
@@ -54,10 +54,10 @@ impl OnsetGroup {
 pub fn groups(s: &Scenario) -> Vec<OnsetGroup> {
     let a = &s.axes;
     let mut out = Vec::new();
-    for &mu in &a.mu {
-        for controller in &a.controller {
-            for &rate_hz in &a.rate_hz {
-                for &actuator in &a.actuator {
+    for mu in a.numbers("mu") {
+        for controller in a.names("controller") {
+            for rate_hz in a.numbers("rate_hz") {
+                for actuator in a.actuators() {
                     out.push(OnsetGroup {
                         index: out.len(),
                         mu,
@@ -76,24 +76,17 @@ pub fn groups(s: &Scenario) -> Vec<OnsetGroup> {
 /// and its mean stance-phase slip stayed within
 /// the floor plus the threshold.
 fn holds(s: &Scenario, robot: &LoadedRobot, g: &OnsetGroup, slope_deg: f64, limit_mm: f64) -> bool {
-    let a = &s.axes;
-    let cell = Cell {
-        index: 0,
-        slope_deg,
-        mu: g.mu,
-        rate_hz: g.rate_hz,
-        actuator: g.actuator,
-        controller: g.controller.clone(),
-        mass_scale: a.mass_scale[0],
-        com_shift_mm: a.com_shift_mm[0],
-        sensor_noise: a.sensor_noise[0],
-        seed: 0,
-        world: a.world.combos().swap_remove(0), // issue 14: the first world value of each axis
-    };
+    // Every other axis at its first value.
+    let cell = Cell::first_of(&s.axes)
+        .set("slope_deg", slope_deg)
+        .set("mu", g.mu)
+        .set("rate_hz", g.rate_hz)
+        .set("actuator", g.actuator.name())
+        .set("controller", g.controller.as_str());
     let out = run_cell(&CellContext { scenario: s, robot }, &cell, None);
     // Held means held and controlled: an infeasible or no-control run stayed up but what it
     // measures is the law giving way, not the law holding the slope.
-    out.status == CellStatus::Ok && out.metrics.slip_mean_mm <= limit_mm
+    out.status == Outcome::Ok && out.metrics.slip_mean_mm <= limit_mm
 }
 
 /// Bisection for one group: (onset angle in degrees, runs made). If even `lo_deg` is not held

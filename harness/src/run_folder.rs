@@ -309,51 +309,32 @@ pub fn check_rows(
 
 /// The matrix a manifest records (its `axes` and `seeds`), expanded into cells, so rows can be
 /// checked without the scenario's files.
-pub fn cells_of_manifest(m: &Value) -> Result<Vec<Cell>, String> {
-    let a = &m["axes"];
-    let nums = |k: &str| -> Result<Vec<f64>, String> {
-        a[k].as_array()
-            .ok_or_else(|| format!("field `axes.{k}` missing"))?
-            .iter()
-            .map(|v| {
-                v.as_f64()
-                    .ok_or_else(|| format!("field `axes.{k}`: not a number"))
-            })
-            .collect()
-    };
-    let strs = |k: &str| -> Result<Vec<String>, String> {
-        a[k].as_array()
-            .ok_or_else(|| format!("field `axes.{k}` missing"))?
-            .iter()
-            .map(|v| {
-                v.as_str()
-                    .map(String::from)
-                    .ok_or_else(|| format!("field `axes.{k}`: not a name"))
-            })
-            .collect()
-    };
-    let actuator = strs("actuator")?
+pub fn cells_of_manifest(m: &crate::run_format::Manifest) -> Result<Vec<Cell>, String> {
+    // The names are checked against what this build knows (a manifest is a file).
+    let laws = gripsweep_controllers::laws::law_names();
+    let actuators: Vec<&str> = crate::plant::actuator::ActuatorKind::ALL
         .iter()
-        .map(|n| {
-            crate::plant::actuator::ActuatorKind::parse(n)
-                .ok_or_else(|| format!("field `axes.actuator`: unknown actuator '{n}'"))
-        })
-        .collect::<Result<Vec<_>, _>>()?;
-    let axes = crate::scenario::Axes {
-        slope_deg: nums("slope_deg")?,
-        mu: nums("mu")?,
-        rate_hz: nums("rate_hz")?,
-        actuator,
-        controller: strs("controller")?,
-        mass_scale: nums("mass_scale")?,
-        com_shift_mm: nums("com_shift_mm")?,
-        sensor_noise: nums("sensor_noise")?,
-        world: crate::scenario_world::WorldAxes::from_json(a)?, // issue 14 (world14)
-    };
-    let seeds = m["seeds"]
-        .as_u64()
-        .filter(|s| (1..=crate::limits::MAX_SEEDS as u64).contains(s))
-        .ok_or("field `seeds` missing or out of range")? as u32;
+        .map(|k| k.name())
+        .collect();
+    let values = m.axis_values()?;
+    for (a, vs) in crate::run_format::AXES.iter().zip(&values) {
+        for v in vs {
+            if let (crate::run_format::AxisKind::Name, Some(n)) = (a.kind, v.name()) {
+                let known: &[&str] = match a.name {
+                    "controller" => &laws,
+                    "actuator" => &actuators,
+                    _ => &[],
+                };
+                if !known.is_empty() && !known.contains(&n) {
+                    return Err(format!("field `axes.{}`: unknown {} '{n}'", a.name, a.name));
+                }
+            }
+        }
+    }
+    let axes = crate::scenario::Axes { values };
+    let seeds = Some(m.seeds)
+        .filter(|s| (1..=crate::limits::MAX_SEEDS).contains(s))
+        .ok_or("field `seeds` out of range")?;
     let count = axes.len_product(seeds);
     if count.is_none_or(|n| n > crate::limits::MAX_CELLS) {
         return Err(format!(

@@ -4,13 +4,13 @@
 
 use crate::cell::{CellContext, CellOutcome, run_cell_with_plan};
 use crate::matrix::{Cell, expand, shard};
-use crate::metrics::{CellMetrics, CellStatus};
 use crate::planner::Gait;
 use crate::robot::LoadedRobot;
 use crate::run_folder::{
     FolderState, check_replaceable, compare_inputs, folder_state, input_entry, read_manifest,
     remove_tool_files, sha256_hex,
 };
+use crate::run_format::{Manifest, Outcome, ShardInfo, metric_columns};
 use crate::scenario::Scenario;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use rayon::prelude::*;
@@ -22,11 +22,7 @@ use std::path::{Path, PathBuf};
 use std::sync::mpsc;
 use std::time::{Instant, SystemTime, UNIX_EPOCH};
 
-pub const CELLS_FILE: &str = "cells.csv";
-pub const TIMING_FILE: &str = "timing.csv";
-pub const MANIFEST_FILE: &str = "manifest.json";
-
-pub const TIMING_COLUMNS: [&str; 4] = ["cell_id", "compute_median_us", "compute_p99_us", "wall_s"];
+pub use crate::run_format::{CELLS_FILE, MANIFEST_FILE, TIMING_COLUMNS, TIMING_FILE};
 
 /// A run failure, with the exit code the command should end with (2: bad input or an output
 /// folder in the way; 1: anything else).
@@ -77,64 +73,35 @@ pub struct RunSummary {
     pub wall_s: f64,
 }
 
-/// The columns of `cells.csv`.
+/// The columns of `cells.csv` ([`crate::run_format::cells_header`]).
 pub fn header() -> Vec<String> {
-    // Identity, the axes (crate::matrix::AXIS_NAMES), the outcome, the metrics.
-    let mut h: Vec<String> = ["cell_id", "index"]
-        .iter()
-        .chain(crate::matrix::AXIS_NAMES.iter())
-        .map(|s| s.to_string())
-        .collect();
-    h.push("status".into());
-    h.push("message".into());
-    h.extend(CellMetrics::COLUMNS.iter().map(|s| s.to_string()));
-    // --- issue 14 (world14): its metrics and the world axes, appended after the metrics ---
-    h.extend(crate::world_metrics::COLUMNS.iter().map(|s| s.to_string()));
-    h.extend(
-        crate::scenario_world::WORLD_AXIS_NAMES
-            .iter()
-            .map(|s| s.to_string()),
-    );
-    // --- end issue 14 ---
-    h
+    crate::run_format::cells_header()
 }
 
 /// Rust's shortest round-trip formatting: bit-identical text for bit-identical numbers.
 fn num(x: f64) -> String {
-    format!("{x}")
-}
-
-/// The identity columns of a cell (id, index, the axes), by column name, as written.
-fn cell_identity(cell: &Cell) -> [(&'static str, String); 11] {
-    cell_identity_of(cell, cell.id())
-}
-
-/// [`cell_identity`] with the id given (computing it is a SHA-256).
-fn cell_identity_of(cell: &Cell, id: String) -> [(&'static str, String); 11] {
-    let n = crate::matrix::AXIS_NAMES;
-    [
-        ("cell_id", id),
-        ("index", cell.index.to_string()),
-        (n[0], num(cell.slope_deg)),
-        (n[1], num(cell.mu)),
-        (n[2], num(cell.rate_hz)),
-        (n[3], cell.actuator.name().to_string()),
-        (n[4], cell.controller.clone()),
-        (n[5], num(cell.mass_scale)),
-        (n[6], num(cell.com_shift_mm)),
-        (n[7], num(cell.sensor_noise)),
-        (n[8], cell.seed.to_string()),
-    ]
+    crate::run_format::num_text(x)
 }
 
 fn cell_record(cell: &Cell, out: &CellOutcome) -> Vec<String> {
-    let mut r: Vec<String> = cell_identity(cell).into_iter().map(|(_, v)| v).collect();
+    // In `cells_header` order: identity and the first axes, the outcome, the metrics, the
+    // axes added since (`run_format::late_axis_columns`).
+    let id = cell.identity(cell.id());
+    let text = |col: &str| {
+        id.iter()
+            .find(|(n, _)| *n == col)
+            .map(|(_, v)| v.clone())
+            .unwrap_or_default()
+    };
+    let mut r: Vec<String> = crate::run_format::cell_columns()
+        .into_iter()
+        .take_while(|c| *c != "status")
+        .map(text)
+        .collect();
     r.push(out.status.name().to_string());
     r.push(out.message.clone());
     r.extend(out.metrics.values().iter().map(|v| num(*v)));
-    // issue 14 (world14): its metrics, then the world axes
-    r.extend(out.metrics.world.values().iter().map(|v| num(*v)));
-    r.extend(cell.world.columns());
+    r.extend(crate::run_format::late_axis_columns().into_iter().map(text));
     r
 }
 
@@ -235,7 +202,7 @@ fn cell_row_check<'a>(
             ));
         }
         // The id matched already: compare the other identity columns.
-        let own = cell_identity_of(cell, String::new());
+        let own = cell.identity(String::new());
         for (col, value) in header.iter().zip(rec.iter()) {
             let col = col.as_str();
             if col == "cell_id" {
@@ -248,10 +215,10 @@ fn cell_row_check<'a>(
                     ));
                 }
             } else if col == "status" {
-                if CellStatus::parse(value).is_none() {
+                if Outcome::parse(value).is_none() {
                     return Err(format!("column `status`: unknown status '{value}'"));
                 }
-            } else if CellMetrics::COLUMNS.contains(&col) && value.parse::<f64>().is_err() {
+            } else if metric_columns().contains(&col) && value.parse::<f64>().is_err() {
                 return Err(format!("column `{col}`: '{value}' is not a number"));
             }
         }
@@ -327,10 +294,6 @@ fn write_sorted(path: &Path, header: &[String], rows: &[Vec<String>]) -> Result<
     std::fs::rename(&tmp, path).map_err(|e| format!("{}: {e}", path.display()))
 }
 
-fn gait_json(g: &Gait) -> Value {
-    json!(format!("{g:?}"))
-}
-
 fn manifest(
     s: &Scenario,
     robot: &LoadedRobot,
@@ -338,47 +301,50 @@ fn manifest(
     total: usize,
     in_shard: usize,
     floor: f64,
-) -> Value {
-    let a = &s.axes;
-    json!({
-        "tool": "gripsweep",
-        "tool_version": env!("CARGO_PKG_VERSION"),
-        "scenario_name": s.name,
-        "scenario_source": s.source,
-        "scenario_sha256": sha256_hex(&s.text),
-        "inputs": manifest_inputs(s, robot),
-        "scenario_text": s.text,
-        "robot_source": robot.source,
-        "robot_facts_sha256": sha256_hex(&robot.facts_text),
-        "robot_urdf_sha256": sha256_hex(&robot.urdf_text),
-        "gait": gait_json(&s.gait),
-        "duration_s": s.duration,
-        "seeds": s.seeds,
-        "plant": { "dt_s": s.plant.dt, "substeps": s.plant.substeps, "contact_hz": s.plant.contact_hz,
-                   "contact_damping": s.plant.contact_damping, "joint_limits": s.plant.joint_limits },
-        "axes": with_world_axes(&a.world, json!({
-            "slope_deg": a.slope_deg, "mu": a.mu, "rate_hz": a.rate_hz,
-            "actuator": a.actuator.iter().map(|k| k.name()).collect::<Vec<_>>(),
-            "controller": a.controller, "mass_scale": a.mass_scale, "com_shift_mm": a.com_shift_mm,
-            "sensor_noise": a.sensor_noise,
-        })),
-        "cell_count": total,
-        "shard": opts.shard.map(|(i, k)| json!({"index": i, "count": k, "cells": in_shard})),
-        "slip_floor_mm": floor,
-        "started_unix_s": now_unix(),
-        "finished_unix_s": Value::Null,
-    })
+) -> Manifest {
+    Manifest {
+        tool: "gripsweep".into(),
+        tool_version: env!("CARGO_PKG_VERSION").into(),
+        scenario_name: s.name.clone(),
+        scenario_source: s.source.clone(),
+        scenario_sha256: sha256_hex(&s.text),
+        inputs: manifest_inputs(s, robot),
+        scenario_text: s.text.clone(),
+        robot_source: robot.source.clone(),
+        robot_facts_sha256: sha256_hex(&robot.facts_text),
+        robot_urdf_sha256: sha256_hex(&robot.urdf_text),
+        gait: gait_text(&s.gait),
+        duration_s: s.duration,
+        seeds: s.seeds,
+        plant: json!({ "dt_s": s.plant.dt, "substeps": s.plant.substeps, "contact_hz": s.plant.contact_hz,
+                   "contact_damping": s.plant.contact_damping, "joint_limits": s.plant.joint_limits }),
+        axes: Manifest::axes_field(&s.axes.values),
+        cell_count: total,
+        shard: opts.shard.map(|(index, count)| ShardInfo {
+            index,
+            count,
+            cells: in_shard,
+        }),
+        slip_floor_mm: finite(floor),
+        slip_locked_mm: None,
+        slip_floor_implausible: false,
+        gains_sha256: None,
+        onset_groups: None,
+        plan_limits: Value::Null,
+        merged_from: None,
+        started_unix_s: now_unix(),
+        finished_unix_s: None,
+    }
 }
 
-// --- issue 14 (world14) ---
-/// The manifest's `axes` with the world axes added.
-fn with_world_axes(w: &crate::scenario_world::WorldAxes, mut axes: Value) -> Value {
-    if let Some(m) = axes.as_object_mut() {
-        m.extend(w.to_json());
-    }
-    axes
+fn gait_text(g: &Gait) -> String {
+    format!("{g:?}")
 }
-// --- end issue 14 ---
+
+/// A number for the manifest: `None` (JSON null) when it is not finite.
+fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
+}
 
 /// The plan's friction limit on each slope (planner/limit.rs), for the manifest's
 /// `plan_limits`: one object per slope with `slope_deg`, `mu_required` (null when no friction
@@ -409,13 +375,14 @@ pub fn plan_limits_json(plans: &[(f64, crate::planner::Plan)]) -> Value {
     json!(rows)
 }
 
-fn write_manifest(dir: &Path, m: &Value) -> Result<(), String> {
-    // Written to a temporary file and renamed, so a kill never leaves a torn manifest.
-    let p = dir.join(MANIFEST_FILE);
-    let tmp = dir.join("manifest.json.tmp");
-    let text = serde_json::to_string_pretty(m).expect("json");
-    std::fs::write(&tmp, text + "\n").map_err(|e| format!("{}: {e}", tmp.display()))?;
-    std::fs::rename(&tmp, &p).map_err(|e| format!("{}: {e}", p.display()))
+fn write_manifest(dir: &Path, m: &Manifest) -> Result<(), String> {
+    m.write(dir)
+}
+
+/// A run folder's manifest as the typed [`Manifest`] (`what`: the folder, for the message).
+fn typed_manifest(dir: &Path, m: Value) -> Result<Manifest, RunError> {
+    serde_json::from_value(m)
+        .map_err(|e| RunError::input(format!("{}: {e}", dir.join(MANIFEST_FILE).display())))
 }
 
 /// The apparent slip of feet that do not move, for this scenario's robot and plant settings
@@ -497,21 +464,17 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     let state = folder_state(out);
     let mut floor = f64::NAN;
     let mut kept = (Vec::new(), 0u64, Vec::new(), 0u64);
-    let mut man = if resuming {
+    let man = if resuming {
         let FolderState::RunFolder(m) = state else {
             return Err(RunError::input(format!(
                 "{}: changed while this command started; try again",
                 out.display()
             )));
         };
+        let m = typed_manifest(out, m)?;
         let what = format!("{}: --resume", out.display());
-        compare_inputs(&what, &m["inputs"], &inputs).map_err(RunError::input)?;
-        let shard_then = m["shard"].as_object().map(|o| {
-            (
-                o["index"].as_u64().unwrap_or(0) as usize,
-                o["count"].as_u64().unwrap_or(0) as usize,
-            )
-        });
+        compare_inputs(&what, &m.inputs, &inputs).map_err(RunError::input)?;
+        let shard_then = m.shard.map(|sh| (sh.index, sh.count));
         if shard_then != opts.shard {
             return Err(RunError::input(format!(
                 "{what}: the folder holds shard {shard_then:?}, not {:?}",
@@ -546,8 +509,8 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
             )
             .map_err(RunError::input)?;
         }
-        floor = m["slip_floor_mm"].as_f64().unwrap_or(f64::NAN);
-        m
+        floor = m.slip_floor_mm.unwrap_or(f64::NAN);
+        Some(m)
     } else {
         match state {
             FolderState::Missing | FolderState::Empty => {}
@@ -559,7 +522,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
                 )));
             }
         }
-        Value::Null
+        None
     };
     // Gains, under the lock (a second writer is refused at once, not after a tuning): the
     // table given with --gains-from, the folder's own on --resume (its inputs were compared
@@ -584,7 +547,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     // The folder's kept cells ran with the gains its manifest names: a resume with another
     // table would mix results.
     if resuming
-        && let Some(old) = man["gains_sha256"].as_str()
+        && let Some(old) = man.as_ref().and_then(|m| m.gains_sha256.as_deref())
         && old != sha256_hex(&gains_csv)
     {
         return Err(RunError::input(format!(
@@ -599,20 +562,18 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     if floor.is_nan() {
         floor = slip_floor(s, &robot);
     }
-    if man.is_null() {
-        man = manifest(s, &robot, opts, total, cells.len(), floor);
-    }
-    man["inputs"] = inputs;
-    man["slip_floor_mm"] = json!(floor);
+    let mut man = man.unwrap_or_else(|| manifest(s, &robot, opts, total, cells.len(), floor));
+    man.inputs = inputs;
+    man.slip_floor_mm = finite(floor);
     // The tuning table is one more input of the run: written with the folder, hashed here.
     std::fs::write(out.join(crate::tuning::GAINS_FILE), &gains_csv)
         .map_err(|e| RunError::other(format!("{}: {e}", out.display())))?;
-    man["gains_sha256"] = json!(sha256_hex(&gains_csv));
-    if man.get("slip_locked_mm").is_none() {
-        man["slip_locked_mm"] = json!(crate::floor::locked_slip(s, &robot));
+    man.gains_sha256 = Some(sha256_hex(&gains_csv));
+    if man.slip_locked_mm.is_none() {
+        man.slip_locked_mm = finite(crate::floor::locked_slip(s, &robot));
     }
     let implausible = floor.is_nan() || floor > crate::floor::FLOOR_BOUND_MM;
-    man["slip_floor_implausible"] = json!(implausible);
+    man.slip_floor_implausible = implausible;
     if implausible {
         eprintln!(
             "gripsweep: warning: the slip floor is {floor:.3} mm per stance phase, above the plausible {} mm (a robot standing still on flat ground at μ = 1 should not creep); no table ranks the laws on slip",
@@ -624,7 +585,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
             .into_iter()
             .filter(|g| opts.shard.is_none_or(|(i, k)| g.index % k == i))
             .count();
-        man["onset_groups"] = json!(n);
+        man.onset_groups = Some(n as u64);
     }
     write_manifest(out, &man).map_err(RunError::other)?;
 
@@ -639,10 +600,16 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         .filter(|c| !done.contains(c.id().as_str()))
         .collect();
     let skipped = cells.len() - todo.len();
-    let status_col = head.iter().position(|c| c == "status").unwrap_or(0);
+    // Kept rows were checked (`cell_row_check`): every status parses.
+    let status_col = head.iter().position(|c| c == "status");
     let mut failures = done_rows
         .iter()
-        .filter(|r| r.get(status_col) != Some("ok"))
+        .filter(|r| {
+            status_col
+                .and_then(|i| r.get(i))
+                .and_then(Outcome::parse)
+                .is_none_or(Outcome::is_failure)
+        })
         .count();
 
     let bar = progress_bar(cells.len() as u64, skipped as u64, opts.quiet);
@@ -657,9 +624,9 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     // axes); a slope whose plan fails is left to its cells, which report it as an error.
     let plans: Vec<(f64, crate::planner::Plan)> = s
         .axes
-        .slope_deg
-        .iter()
-        .filter_map(|&deg| {
+        .numbers("slope_deg")
+        .into_iter()
+        .filter_map(|deg| {
             let slope = crate::plant::terrain::Slope::degrees(deg);
             crate::planner::Plan::build(&robot.model, &robot.facts, &slope, &s.gait, s.duration)
                 .ok()
@@ -667,23 +634,23 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
         })
         .collect();
     let plan_for = |deg: f64| plans.iter().find(|(d, _)| *d == deg).map(|(_, p)| p);
-    // issue 14 (world14): the shared plans face uphill; a cell with another heading plans its own.
-    let plan_for = |cell: &Cell| {
-        if cell.world.heading_deg == 0.0 {
-            plan_for(cell.slope_deg)
-        } else {
-            None
-        }
-    };
-    man["plan_limits"] = plan_limits_json(&plans);
+    man.plan_limits = plan_limits_json(&plans);
     write_manifest(out, &man).map_err(RunError::other)?;
     parallel_units(
         threads,
         &todo,
-        |cell| run_cell_with_plan(&ctx, cell, plan_for(cell), None),
+        // The shared plans face uphill; a cell with another heading plans its own.
+        |cell| {
+            let shared = if cell.number("heading_deg") == 0.0 {
+                plan_for(cell.slope_deg())
+            } else {
+                None
+            };
+            run_cell_with_plan(&ctx, cell, shared, None)
+        },
         |done_now, i, outcome| {
             let cell = todo[i];
-            if outcome.status != CellStatus::Ok {
+            if outcome.status.is_failure() {
                 failures += 1;
             }
             let rec = cell_record(cell, &outcome);
@@ -732,7 +699,7 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     // Complete: rewrite both files in matrix order, so a finished folder is byte-identical
     // whatever the thread count, the order of completion or the number of resumes.
     finalize(out, &head, &timing_head).map_err(RunError::other)?;
-    man["finished_unix_s"] = json!(now_unix());
+    man.finished_unix_s = Some(now_unix());
     write_manifest(out, &man).map_err(RunError::other)?;
     if opts.shard.is_none() && !opts.no_report {
         write_report(out).map_err(RunError::other)?;
@@ -933,17 +900,14 @@ pub fn merge(
                 d.display()
             )));
         }
-        let Some(sh) = m["shard"].as_object() else {
+        let m = typed_manifest(d, m)?;
+        let Some(sh) = m.shard else {
             return Err(RunError::input(format!(
                 "{}: not a shard (its manifest has no shard)",
                 d.display()
             )));
         };
-        let (i, k, n) = (
-            sh["index"].as_u64().unwrap_or(0) as usize,
-            sh["count"].as_u64().unwrap_or(0) as usize,
-            sh["cells"].as_u64().unwrap_or(0) as usize,
-        );
+        let (i, k, n) = (sh.index, sh.count, sh.cells);
         if k == 0 {
             return Err(RunError::input(format!(
                 "{}: {MANIFEST_FILE}: field `shard.count`: not a shard count",
@@ -952,15 +916,15 @@ pub fn merge(
         }
         shards.push((d.clone(), m, i, k, n));
     }
-    let (first_inputs, k) = (shards[0].1["inputs"].clone(), shards[0].3);
+    let (first_inputs, k) = (shards[0].1.inputs.clone(), shards[0].3);
     for (d, m, _, kk, _) in &shards {
         let what = format!(
             "{}: a shard made from other inputs than {}",
             d.display(),
             shards[0].0.display()
         );
-        compare_inputs(&what, &first_inputs, &m["inputs"]).map_err(RunError::input)?;
-        if m["gains_sha256"] != shards[0].1["gains_sha256"] {
+        compare_inputs(&what, &first_inputs, &m.inputs).map_err(RunError::input)?;
+        if m.gains_sha256 != shards[0].1.gains_sha256 {
             return Err(RunError::input(format!(
                 "{}: ran with other gains (gains.csv) than {}; tune once and pass the table to every shard with --gains-from",
                 d.display(),
@@ -1038,7 +1002,7 @@ pub fn merge(
             };
         let (rows, torn) = read(CELLS_FILE, &head, &mut cell_row_check(&head, &expected))
             .map_err(RunError::input)?;
-        if torn || rows.len() != *n || m["finished_unix_s"].is_null() {
+        if torn || rows.len() != *n || m.finished_unix_s.is_none() {
             incomplete.push(format!(
                 "{}/{k} ({} of {n} cells, in {})",
                 i + 1,
@@ -1063,17 +1027,13 @@ pub fn merge(
     // The slip-onset study, when the scenario has one: every shard's groups, complete and
     // checked, before anything is written.
     let mut onset_rows: Option<Vec<Vec<String>>> = None;
-    if shards[0]
-        .1
-        .get("onset_groups")
-        .is_some_and(|v| !v.is_null())
-    {
+    if shards[0].1.onset_groups.is_some() {
         use crate::onset::{ONSET_COLUMNS, ONSET_FILE};
         let head: Vec<String> = ONSET_COLUMNS.iter().map(|c| c.to_string()).collect();
         let mut rows = Vec::new();
         let mut short = Vec::new();
         for (d, m, i, _, _) in &shards {
-            let want = m["onset_groups"].as_u64().unwrap_or(0) as usize;
+            let want = m.onset_groups.unwrap_or(0) as usize;
             let path = d.join(ONSET_FILE);
             let got = if path.exists() {
                 let (bytes, _) =
@@ -1152,21 +1112,12 @@ pub fn merge(
         write_sorted(&out.join(ONSET_FILE), &head, &rows).map_err(RunError::other)?;
     }
     let mut man = shards[0].1.clone();
-    man["shard"] = Value::Null;
-    if man.get("onset_groups").is_some() {
-        man["onset_groups"] = json!(
-            shards
-                .iter()
-                .map(|x| x.1["onset_groups"].as_u64().unwrap_or(0))
-                .sum::<u64>()
-        );
+    man.shard = None;
+    if man.onset_groups.is_some() {
+        man.onset_groups = Some(shards.iter().filter_map(|x| x.1.onset_groups).sum());
     }
-    man["merged_from"] = json!(
-        dirs.iter()
-            .map(|d| d.display().to_string())
-            .collect::<Vec<_>>()
-    );
-    man["finished_unix_s"] = json!(now_unix());
+    man.merged_from = Some(dirs.iter().map(|d| d.display().to_string()).collect());
+    man.finished_unix_s = Some(now_unix());
     write_manifest(out, &man).map_err(RunError::other)?;
     if !no_report {
         write_report(out).map_err(RunError::other)?;

@@ -11,6 +11,7 @@ use crate::planner::Gait;
 use crate::plant::PlantSettings;
 use crate::plant::actuator::ActuatorKind;
 use crate::robot::LoadedRobot;
+use crate::run_format::{AXES, AxisContext, AxisKind, AxisValue, axis};
 use gripsweep_controllers::laws::{LawSettings, law_names};
 use serde::Deserialize;
 use std::collections::BTreeMap;
@@ -54,14 +55,13 @@ pub struct ScenarioFile {
     pub falls: FallsFile,
     #[serde(default)]
     pub onset: Option<OnsetFile>,
-    // --- issue 14 (world14): the world axes' named tables ---
+    /// The world axes' named tables (issue 14; crate::scenario_world).
     #[serde(default)]
     pub terrain: BTreeMap<String, crate::scenario_world::TerrainFile>,
     #[serde(default)]
     pub patch: BTreeMap<String, crate::scenario_world::PatchFile>,
     #[serde(default)]
     pub push: BTreeMap<String, crate::scenario_world::PushFile>,
-    // --- end issue 14 ---
 }
 
 fn default_robot() -> String {
@@ -216,27 +216,9 @@ pub struct LawTable {
     pub fields: Vec<(String, f64)>,
 }
 
-#[derive(Clone, Debug, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct AxesFile {
-    pub slope_deg: Option<Vec<f64>>,
-    pub mu: Option<Vec<f64>>,
-    pub rate_hz: Option<Vec<f64>>,
-    pub actuator: Option<Vec<String>>,
-    pub controller: Option<Vec<String>>,
-    pub mass_scale: Option<Vec<f64>>,
-    pub com_shift_mm: Option<Vec<f64>>,
-    pub sensor_noise: Option<Vec<f64>>,
-    // --- issue 14 (world14): the world axes (crate::scenario_world) ---
-    pub heading_deg: Option<Vec<f64>>,
-    pub terrain: Option<Vec<String>>,
-    pub patch: Option<Vec<String>>,
-    pub patch_mu: Option<Vec<f64>>,
-    pub patch_known: Option<Vec<bool>>,
-    pub push: Option<Vec<String>>,
-    pub mu_estimate_scale: Option<Vec<f64>>,
-    // --- end issue 14 ---
-}
+/// The `[axes]` table as written: one field per axis of [`crate::run_format::AXES`] (each
+/// optional; an unknown name is refused, naming the axes there are).
+pub type AxesFile = toml::Table;
 
 /// Sensor noise standard deviations at `sensor_noise = 1` (scaled by the axis value), and the
 /// observation delay.
@@ -324,25 +306,14 @@ pub struct Scenario {
     pub noise: NoiseFile,
     pub falls: FallsFile,
     pub onset: Option<OnsetFile>,
-    // --- issue 14 (world14) ---
     /// The `[terrain.<name>]`, `[patch.<name>]`, `[push.<name>]` tables.
     pub world: crate::scenario_world::WorldTables,
-    // --- end issue 14 ---
 }
 
+/// The resolved axes: per axis of [`crate::run_format::AXES`], in table order, its values.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Axes {
-    pub slope_deg: Vec<f64>,
-    pub mu: Vec<f64>,
-    pub rate_hz: Vec<f64>,
-    pub actuator: Vec<ActuatorKind>,
-    pub controller: Vec<String>,
-    pub mass_scale: Vec<f64>,
-    pub com_shift_mm: Vec<f64>,
-    pub sensor_noise: Vec<f64>,
-    // --- issue 14 (world14) ---
-    pub world: crate::scenario_world::WorldAxes,
-    // --- end issue 14 ---
+    pub values: Vec<Vec<AxisValue>>,
 }
 
 /// A scenario problem: message names the file and field.
@@ -553,105 +524,26 @@ impl Scenario {
             }
         };
 
-        let a = &file.axes;
-        let nonempty = |field: &str, len: usize| -> Result<(), ScenarioError> {
-            if len == 0 {
-                Err(fail(field, "the axis is empty; give at least one value or leave the field out for its default".into()))
-            } else {
-                Ok(())
-            }
+        let law_list = law_names();
+        let actuator_list: Vec<&str> = ActuatorKind::ALL.iter().map(|k| k.name()).collect();
+        let world = crate::scenario_world::parse_tables(&file.terrain, &file.patch, &file.push)
+            .map_err(|(field, msg)| fail(&field, msg))?;
+        let [terrains, patches, pushes] = world.names();
+        let axis_ctx = AxisContext {
+            plant_rate_hz: 1.0 / plant.dt,
+            laws: &law_list,
+            actuators: &actuator_list,
+            terrains: &terrains,
+            patches: &patches,
+            pushes: &pushes,
         };
-        let numbers = |field: &str,
-                       v: &Option<Vec<f64>>,
-                       default: &[f64],
-                       ok: &dyn Fn(f64) -> bool,
-                       allowed: &str|
-         -> Result<Vec<f64>, ScenarioError> {
-            let v = v.clone().unwrap_or_else(|| default.to_vec());
-            nonempty(field, v.len())?;
-            if v.len() > MAX_AXIS_VALUES {
-                return Err(fail(
-                    field,
-                    format!("{} values: allowed: at most {MAX_AXIS_VALUES}", v.len()),
-                ));
-            }
-            for (i, x) in v.iter().enumerate() {
-                if !x.is_finite() || !ok(*x) {
-                    return Err(fail(
-                        field,
-                        format!("value {x} (entry {}): allowed: {allowed}", i + 1),
-                    ));
-                }
-            }
-            // Values equal within AXIS_TOLERANCE would run every cell twice. Sorted, so the
-            // check is O(n log n); each value is compared with its neighbour.
-            let mut sorted: Vec<(f64, usize)> = v.iter().copied().zip(0..).collect();
-            sorted.sort_by(|a, b| a.0.total_cmp(&b.0));
-            for w in sorted.windows(2) {
-                if same_axis_value(w[0].0, w[1].0) {
-                    let (a, b) = (w[0].1.min(w[1].1), w[0].1.max(w[1].1));
-                    return Err(fail(
-                        field,
-                        format!(
-                            "values {} (entry {}) and {} (entry {}) are the same value (equal within a relative {AXIS_TOLERANCE}); give each value once",
-                            v[a],
-                            a + 1,
-                            v[b],
-                            b + 1
-                        ),
-                    ));
-                }
-            }
-            Ok(v)
-        };
-        let slope_deg = numbers(
-            "axes.slope_deg",
-            &a.slope_deg,
-            &[0.0],
-            &|x| x.abs() < 60.0,
-            "|slope| < 60°",
-        )?;
-        let mu = numbers(
-            "axes.mu",
-            &a.mu,
-            &[0.6],
-            &|x| x > 0.0 && x <= 5.0,
-            "0 < μ ≤ 5",
-        )?;
-        let plant_rate = 1.0 / plant.dt;
-        let rate_hz = numbers(
-            "axes.rate_hz",
-            &a.rate_hz,
-            &[plant_rate.round()],
-            &|x| {
-                let ratio = plant_rate / x;
-                x >= 1.0 && x <= plant_rate + 1e-9 && (ratio - ratio.round()).abs() < 1e-9
-            },
-            &format!(
-                "a control rate that divides the plant rate {plant_rate} Hz (e.g. 100, 250, 500, 1000)"
-            ),
-        )?;
-        let mass_scale = numbers(
-            "axes.mass_scale",
-            &a.mass_scale,
-            &[1.0],
-            &|x| x > 0.2 && x < 5.0,
-            "0.2 < scale < 5",
-        )?;
-        let com_shift_mm = numbers(
-            "axes.com_shift_mm",
-            &a.com_shift_mm,
-            &[0.0],
-            &|x| x.abs() <= 200.0,
-            "|shift| ≤ 200 mm",
-        )?;
-        let sensor_noise = numbers(
-            "axes.sensor_noise",
-            &a.sensor_noise,
-            &[0.0],
-            &|x| (0.0..=100.0).contains(&x),
-            "0 ≤ level ≤ 100",
-        )?;
+        let mut axes =
+            parse_axes(&file.axes, &axis_ctx).map_err(|(field, msg)| fail(&field, msg))?;
+        world
+            .check_axes(&axes.names("terrain"), &axes.names("patch"))
+            .map_err(|(field, msg)| fail(&field, msg))?;
+        let rate_hz = axes.numbers("rate_hz");
+        let controller = axes.names("controller");
         // The shortest cell: control steps at the slowest rate and stance phases to average.
         let slowest = rate_hz.iter().copied().fold(f64::INFINITY, f64::min);
         let min_duration = MIN_DURATION_S.max(10.0 / slowest);
@@ -675,81 +567,20 @@ impl Scenario {
                 ),
             ));
         }
-        let actuator_names = a.actuator.clone().unwrap_or_else(|| vec!["ideal".into()]);
-        if actuator_names.len() > MAX_AXIS_VALUES {
-            return Err(fail(
-                "axes.actuator",
-                format!(
-                    "{} values: allowed: at most {MAX_AXIS_VALUES}",
-                    actuator_names.len()
-                ),
-            ));
-        }
-        nonempty("axes.actuator", actuator_names.len())?;
-        let mut actuator = Vec::new();
-        for n in &actuator_names {
-            let Some(k) = ActuatorKind::parse(n) else {
-                let allowed: Vec<&str> = ActuatorKind::ALL.iter().map(|k| k.name()).collect();
-                return Err(fail(
-                    "axes.actuator",
-                    format!("unknown actuator '{n}'; allowed: {}", allowed.join(", ")),
-                ));
-            };
-            if actuator.contains(&k) {
-                return Err(fail("axes.actuator", format!("'{n}' appears twice")));
-            }
-            actuator.push(k);
-        }
-        let controller = a
-            .controller
-            .clone()
-            .unwrap_or_else(|| law_names().iter().map(|s| s.to_string()).collect());
-        nonempty("axes.controller", controller.len())?;
-        if controller.len() > MAX_AXIS_VALUES {
-            return Err(fail(
-                "axes.controller",
-                format!(
-                    "{} values: allowed: at most {MAX_AXIS_VALUES}",
-                    controller.len()
-                ),
-            ));
-        }
-        for (i, c) in controller.iter().enumerate() {
-            if !law_names().contains(&c.as_str()) {
-                return Err(fail(
-                    "axes.controller",
-                    format!(
-                        "unknown controller '{c}'; allowed: {}",
-                        law_names().join(", ")
-                    ),
-                ));
-            }
-            if controller[..i].contains(c) {
-                return Err(fail("axes.controller", format!("'{c}' appears twice")));
-            }
-        }
         let laws = LawSettings::default();
         let (mu_estimate_scale, law_tables) = parse_law_tables(&file.laws, &controller, &rate_hz)
             .map_err(|(field, msg)| fail(&field, msg))?;
-        // --- issue 14 (world14) ---
-        let (world_axes, world_tables) = crate::scenario_world::parse(
-            &crate::scenario_world::WorldAxesFile {
-                heading_deg: &a.heading_deg,
-                terrain: &a.terrain,
-                patch: &a.patch,
-                patch_mu: &a.patch_mu,
-                patch_known: &a.patch_known,
-                push: &a.push,
-                mu_estimate_scale: &a.mu_estimate_scale,
-            },
-            &file.terrain,
-            &file.patch,
-            &file.push,
-            mu_estimate_scale,
-            MAX_AXIS_VALUES,
-        )
-        .map_err(|(field, msg)| fail(&field, msg))?;
-        // --- end issue 14 ---
+        // `laws.mu_estimate_scale` (one value for the whole run) is the default of the
+        // `mu_estimate_scale` axis; giving both is ambiguous.
+        if mu_estimate_scale != 1.0 {
+            if file.axes.contains_key("mu_estimate_scale") {
+                return Err(fail(
+                    "axes.mu_estimate_scale",
+                    "given both here and as `laws.mu_estimate_scale`; give it in one place".into(),
+                ));
+            }
+            axes.values[axis("mu_estimate_scale")] = vec![AxisValue::Number(mu_estimate_scale)];
+        }
         let n = &file.noise;
         for (field, v) in [
             ("noise.joint_angle", n.joint_angle),
@@ -822,26 +653,12 @@ impl Scenario {
             }
         }
         // The matrix size, with overflow checks: a product that wraps would give 0 cells.
-        let lens = [
-            ("slope_deg", slope_deg.len()),
-            ("mu", mu.len()),
-            ("rate_hz", rate_hz.len()),
-            ("actuator", actuator.len()),
-            ("controller", controller.len()),
-            ("mass_scale", mass_scale.len()),
-            ("com_shift_mm", com_shift_mm.len()),
-            ("sensor_noise", sensor_noise.len()),
-            ("seeds", file.seeds as usize),
-        ]
-        .into_iter()
-        // --- issue 14 (world14) ---
-        .chain(
-            crate::scenario_world::WORLD_AXIS_NAMES
-                .into_iter()
-                .zip(world_axes.lens()),
-        )
-        // --- end issue 14 ---
-        .collect::<Vec<_>>();
+        let lens: Vec<(&str, usize)> = AXES
+            .iter()
+            .zip(&axes.values)
+            .map(|(ax, v)| (ax.name, v.len()))
+            .chain([("seeds", file.seeds as usize)])
+            .collect();
         let count = lens
             .iter()
             .try_fold(1usize, |n, (_, l)| n.checked_mul(*l))
@@ -874,21 +691,11 @@ impl Scenario {
             law_tables,
             tuned: BTreeMap::new(),
             body_height_derived,
-            axes: Axes {
-                slope_deg,
-                mu,
-                rate_hz,
-                actuator,
-                controller,
-                mass_scale,
-                com_shift_mm,
-                sensor_noise,
-                world: world_axes,
-            },
-            world: world_tables,
+            axes,
             noise: file.noise.clone(),
             falls: file.falls.clone(),
             onset: file.onset.clone(),
+            world,
         })
     }
 
@@ -904,7 +711,7 @@ impl Scenario {
     /// Build the plan on every slope of the matrix, so a gait that does not fit (too short a
     /// duration, a step out of reach on a steep slope) is reported before anything runs.
     pub fn check_plans(&self, robot: &LoadedRobot) -> Result<(), ScenarioError> {
-        for &deg in &self.axes.slope_deg {
+        for deg in self.axes.numbers("slope_deg") {
             let slope = crate::plant::terrain::Slope::degrees(deg);
             crate::planner::Plan::build(
                 &robot.model,
@@ -919,8 +726,13 @@ impl Scenario {
                     self.source
                 ))
             })?;
-            // --- issue 14 (world14): every heading of `axes.heading_deg` too ---
-            for &psi in self.axes.world.heading_deg.iter().filter(|&&h| h != 0.0) {
+            // Every heading of `axes.heading_deg` too (the plan walks across the slope).
+            for psi in self
+                .axes
+                .numbers("heading_deg")
+                .into_iter()
+                .filter(|&h| h != 0.0)
+            {
                 let ground = crate::plant::world::Ground::plane(deg, psi);
                 crate::planner::Plan::build(
                     &robot.model,
@@ -936,7 +748,6 @@ impl Scenario {
                     ))
                 })?;
             }
-            // --- end issue 14 ---
         }
         Ok(())
     }
@@ -948,25 +759,143 @@ impl Scenario {
 }
 
 impl Axes {
+    /// The values of a number axis, by its table name.
+    pub fn numbers(&self, name: &str) -> Vec<f64> {
+        self.values[axis(name)]
+            .iter()
+            .filter_map(AxisValue::number)
+            .collect()
+    }
+
+    /// The values of a name axis, by its table name.
+    pub fn names(&self, name: &str) -> Vec<String> {
+        self.values[axis(name)]
+            .iter()
+            .filter_map(|v| v.name().map(String::from))
+            .collect()
+    }
+
+    /// The actuator models of the matrix (names validated against [`ActuatorKind`]).
+    pub fn actuators(&self) -> Vec<ActuatorKind> {
+        self.names("actuator")
+            .iter()
+            .filter_map(|n| ActuatorKind::parse(n))
+            .collect()
+    }
+
+    /// The same axes with one axis's values replaced (by its table name).
+    pub fn with(mut self, name: &str, values: Vec<AxisValue>) -> Axes {
+        self.values[axis(name)] = values;
+        self
+    }
+
     /// The number of cells these axes give with `seeds` seeds; `None` on overflow.
     pub fn len_product(&self, seeds: u32) -> Option<usize> {
-        [
-            self.slope_deg.len(),
-            self.mu.len(),
-            self.rate_hz.len(),
-            self.actuator.len(),
-            self.controller.len(),
-            self.mass_scale.len(),
-            self.com_shift_mm.len(),
-            self.sensor_noise.len(),
-            seeds as usize,
-        ]
-        .iter()
-        // --- issue 14 (world14) ---
-        .chain(self.world.lens().iter())
-        // --- end issue 14 ---
-        .try_fold(1usize, |n, l| n.checked_mul(*l))
+        self.values
+            .iter()
+            .map(Vec::len)
+            .chain([seeds as usize])
+            .try_fold(1usize, |n, l| n.checked_mul(l))
     }
+}
+
+/// Read and validate `[axes]` against the axis table: every field a known axis, every value of
+/// the axis's kind and allowed by its check, at most [`MAX_AXIS_VALUES`] values, none twice;
+/// a field left out takes the axis's default. Errors are (field, message).
+pub fn parse_axes(table: &AxesFile, ctx: &AxisContext) -> Result<Axes, (String, String)> {
+    for name in table.keys() {
+        if !AXES.iter().any(|a| a.name == name) {
+            let known: Vec<&str> = AXES.iter().map(|a| a.name).collect();
+            return Err((
+                format!("axes.{name}"),
+                format!("unknown axis; allowed: {}", known.join(", ")),
+            ));
+        }
+    }
+    let mut values = Vec::with_capacity(AXES.len());
+    for a in AXES {
+        let field = a.field();
+        let fail = |msg: String| (field.clone(), msg);
+        let v: Vec<AxisValue> = match table.get(a.name) {
+            None => (a.default)(ctx),
+            Some(toml::Value::Array(items)) => items
+                .iter()
+                .enumerate()
+                .map(|(i, x)| match (a.kind, x) {
+                    (AxisKind::Number, toml::Value::Float(f)) => Ok(AxisValue::Number(*f)),
+                    (AxisKind::Number, toml::Value::Integer(n)) => Ok(AxisValue::Number(*n as f64)),
+                    (AxisKind::Name, toml::Value::String(n)) => Ok(AxisValue::Name(n.clone())),
+                    // A yes/no axis (`patch_known`) is a name axis whose names are the
+                    // booleans' text.
+                    (AxisKind::Name, toml::Value::Boolean(b)) => {
+                        Ok(AxisValue::Name(b.to_string()))
+                    }
+                    (AxisKind::Number, _) => {
+                        Err(fail(format!("entry {}: expected a number", i + 1)))
+                    }
+                    (AxisKind::Name, _) => Err(fail(format!("entry {}: expected a name", i + 1))),
+                })
+                .collect::<Result<_, _>>()?,
+            Some(_) => {
+                return Err(fail(match a.kind {
+                    AxisKind::Number => "expected an array of numbers".into(),
+                    AxisKind::Name => "expected an array of names".into(),
+                }));
+            }
+        };
+        if v.is_empty() {
+            return Err(fail(
+                "the axis is empty; give at least one value or leave the field out for its default"
+                    .into(),
+            ));
+        }
+        if v.len() > MAX_AXIS_VALUES {
+            return Err(fail(format!(
+                "{} values: allowed: at most {MAX_AXIS_VALUES}",
+                v.len()
+            )));
+        }
+        for (i, x) in v.iter().enumerate() {
+            if let Err(allowed) = (a.check)(x, ctx) {
+                return Err(fail(match x {
+                    AxisValue::Number(n) => {
+                        format!("value {n} (entry {}): allowed: {allowed}", i + 1)
+                    }
+                    AxisValue::Name(n) => format!("unknown {} '{n}'; {allowed}", a.name),
+                }));
+            }
+        }
+        match a.kind {
+            AxisKind::Number => {
+                // Values equal within AXIS_TOLERANCE would run every cell twice. Sorted, so the
+                // check is O(n log n); each value is compared with its neighbour.
+                let nums: Vec<f64> = v.iter().filter_map(AxisValue::number).collect();
+                let mut sorted: Vec<(f64, usize)> = nums.iter().copied().zip(0..).collect();
+                sorted.sort_by(|a, b| a.0.total_cmp(&b.0));
+                for w in sorted.windows(2) {
+                    if same_axis_value(w[0].0, w[1].0) {
+                        let (p, q) = (w[0].1.min(w[1].1), w[0].1.max(w[1].1));
+                        return Err(fail(format!(
+                            "values {} (entry {}) and {} (entry {}) are the same value (equal within a relative {AXIS_TOLERANCE}); give each value once",
+                            nums[p],
+                            p + 1,
+                            nums[q],
+                            q + 1
+                        )));
+                    }
+                }
+            }
+            AxisKind::Name => {
+                for (i, x) in v.iter().enumerate() {
+                    if v[..i].contains(x) {
+                        return Err(fail(format!("'{}' appears twice", x.text())));
+                    }
+                }
+            }
+        }
+        values.push(v);
+    }
+    Ok(Axes { values })
 }
 
 /// The key of one (law, control rate, actuator) combination in [`Scenario::tuned`].

@@ -26,10 +26,10 @@
 //!
 //! Cost: at most 2 + [`CRITICAL_STEPS`] + 1 trials for stiff PD and
 //! 2 + [`CRITICAL_STEPS`] + 2 + [`TARGET_STEPS`] for the others, each one tuning step
-//! (about 2 simulated seconds for the demo robot). Every trial is the real cell simulation ([`run_cell_with_plan`]), so the
+//! (about 2 simulated seconds for the demo robot). Every trial is the real cell simulation ([`run_spec`]), so the
 //! result is deterministic; combinations run in parallel and are collected in matrix order.
 
-use crate::cell::{CellContext, TraceRow, run_cell_with_plan};
+use crate::cell::{CellSpec, TraceRow, run_spec};
 use crate::matrix::Cell;
 use crate::metrics::CellStatus;
 use crate::planner::{Gait, Plan};
@@ -136,9 +136,9 @@ pub struct Combo {
 /// The combinations a scenario's cells need, in matrix order (rate, actuator, law).
 pub fn combos(s: &Scenario) -> Vec<Combo> {
     let mut out = Vec::new();
-    for &rate_hz in &s.axes.rate_hz {
-        for &actuator in &s.axes.actuator {
-            for law in &s.axes.controller {
+    for rate_hz in s.axes.numbers("rate_hz") {
+        for actuator in s.axes.actuators() {
+            for law in s.axes.names("controller") {
                 out.push(Combo {
                     law: law.clone(),
                     rate_hz,
@@ -242,13 +242,14 @@ fn tuning_gait(s: &Scenario) -> Gait {
 
 /// The scenario of the tuning motion: the tuning crawl, exact model, no noise, the scenario's
 /// plant and fall test; `duration` is the tuning step's end ([`tuning_step_end`]).
-fn tuning_scenario(s: &Scenario, duration: f64) -> Scenario {
-    let mut t = s.clone();
-    t.gait = tuning_gait(s);
-    t.duration = duration;
-    t.tuned.clear();
-    t.noise.delay = 0.0;
-    t
+/// What every tuning run is built from: the scenario's robot and plant settings, the tuning
+/// motion, no observation delay (the law settings are each trial's).
+fn tuning_spec(s: &Scenario, duration: f64) -> CellSpec {
+    let mut spec = CellSpec::scenario_defaults(s);
+    spec.gait = tuning_gait(s);
+    spec.duration = duration;
+    spec.noise.delay = 0.0;
+    spec
 }
 
 /// When the tuning crawl's first swing foot is back on the ground, plus [`TUNE_SETTLE`], s.
@@ -269,38 +270,24 @@ fn tuning_step_end(plan: &Plan, dt: f64) -> Option<f64> {
 }
 
 struct Tuner<'a> {
-    scenario: Scenario,
+    scenario: &'a Scenario,
+    spec: CellSpec,
     robot: &'a LoadedRobot,
     plan: Plan,
 }
 
 impl Tuner<'_> {
     fn trial(&self, combo: &Combo, settings: LawSettings, s: f64) -> Trial {
-        let mut scn = self.scenario.clone();
-        scn.tuned.insert(
-            gain_key(&combo.law, combo.rate_hz, combo.actuator),
-            settings,
-        );
-        let cell = Cell {
-            index: 0,
-            slope_deg: 0.0,
-            mu: 1.0,
-            rate_hz: combo.rate_hz,
-            actuator: combo.actuator,
-            controller: combo.law.clone(),
-            mass_scale: 1.0,
-            com_shift_mm: 0.0,
-            sensor_noise: 0.0,
-            seed: 0,
-            world: Default::default(),
+        let spec = CellSpec {
+            law: settings,
+            ..self.spec.clone()
         };
+        let cell = Cell::probe(1.0, combo.rate_hz, combo.actuator, &combo.law);
         let mut rows: Vec<TraceRow> = Vec::new();
-        let out = run_cell_with_plan(
-            &CellContext {
-                scenario: &scn,
-                robot: self.robot,
-            },
+        let out = run_spec(
+            self.robot,
             &cell,
+            &spec,
             Some(&self.plan),
             Some((&mut rows, 1)),
         );
@@ -336,8 +323,8 @@ impl Tuner<'_> {
     /// compensate) does not, so it is not mistaken for instability. A run that ended early
     /// counts as infinite growth.
     fn rate_error_thirds(&self, rows: &[TraceRow]) -> (f64, f64) {
-        let dt = self.scenario.plant.dt;
-        let planned = (self.scenario.duration / dt).round() as usize;
+        let dt = self.spec.plant.dt;
+        let planned = (self.spec.duration / dt).round() as usize;
         if rows.len() < planned {
             return (0.0, f64::INFINITY);
         }
@@ -576,9 +563,9 @@ pub fn tune(
             s.source
         )
     })?;
-    let scenario = tuning_scenario(s, duration);
     let tuner = Tuner {
-        scenario,
+        scenario: s,
+        spec: tuning_spec(s, duration),
         robot,
         plan,
     };

@@ -2,9 +2,10 @@
 //! multibody built from the same URDF and robot facts as the controllers' model, on a terrain,
 //! driven by joint torques, read out in the model's conventions.
 //!
-//! What is switched off so the plant is rigid-body dynamics and nothing else (see
-//! `shared/ENGINE-NOTES.md` for the measurements behind each): the default 0.1 N·m·s/rad
-//! damping on every multibody DOF, sleeping, contact recycling, CCD. What is switched on because
+//! What is switched off so the plant is rigid-body dynamics and nothing else (each was measured
+//! to change a standing robot's slip or energy; `tests/plant_physics.rs` holds the checks): the
+//! engine's default 0.1 N·m·s/rad damping on every multibody DOF, sleeping, contact recycling,
+//! CCD. What is switched on because
 //! real actuators have it: reflected rotor inertia as the engine's armature (the controllers'
 //! model carries the same value), joint friction per actuator model. Contacts are stiff.
 

@@ -101,25 +101,17 @@ fn verdict_html(study: &Study, v: &Verdict) -> String {
 /// A condition's axis values for the verdict sentences: slope and μ, and every other axis the
 /// run varies (rate, actuator, model error, noise) — a condition fixes every axis, so a
 /// sentence without them would name several conditions at once.
-fn place(study: &Study, idx: &[usize; 7]) -> String {
+fn place(study: &Study, idx: &[usize; super::tables::N_AXES]) -> String {
     let mut parts = vec![
-        study
-            .axes
-            .value_text(Axis::Slope, idx[Axis::Slope as usize]),
-        format!(
-            "μ {}",
-            study.axes.value_raw(Axis::Mu, idx[Axis::Mu as usize])
-        ),
+        study.axes.value_text(Axis::Slope, idx[Axis::Slope.0]),
+        format!("μ {}", study.axes.value_raw(Axis::Mu, idx[Axis::Mu.0])),
     ];
-    for axis in [
-        Axis::Rate,
-        Axis::Actuator,
-        Axis::MassScale,
-        Axis::ComShift,
-        Axis::Noise,
-    ] {
+    for axis in Axis::ALL
+        .into_iter()
+        .filter(|a| !matches!(*a, Axis::Slope | Axis::Mu))
+    {
         if study.axes.len(axis) > 1 {
-            parts.push(study.axes.value_text(axis, idx[axis as usize]));
+            parts.push(study.axes.value_text(axis, idx[axis.0]));
         }
     }
     parts.join(", ")
@@ -332,7 +324,7 @@ fn regime_map(out: &mut String, study: &Study) {
     let mut counts = vec![[0usize; 5]; n_ctrl * n_rate * n_act];
     for (i, c) in study.run.cells.iter().enumerate() {
         let (key, ctrl) = study.place_of(i);
-        let k = (ctrl * n_rate + key[Axis::Rate as usize]) * n_act + key[Axis::Actuator as usize];
+        let k = (ctrl * n_rate + key[Axis::Rate.0]) * n_act + key[Axis::Actuator.0];
         counts[k][figures::outcome_class(c.status.name(), c.beyond_plan_limit)] += 1;
     }
     out.push_str("<h3 id=\"regime-map\">Outcomes by control rate × actuator model</h3>\n<p>Each cell counts the runs of one law at one control rate and actuator model (all slopes, μ and seeds): ");
@@ -410,9 +402,9 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
         for cond in &computed.conditions {
             out.push_str("<tr>");
             for a in &axes {
-                let i = cond.idx[*a as usize];
+                let i = cond.idx[a.0];
                 let raw = study.axes.value_raw(*a, i);
-                let shown = match a {
+                let shown = match *a {
                     Axis::Slope => format!("{raw}°"),
                     Axis::Mu => raw.clone(),
                     _ => study.axes.value_text(*a, i),
@@ -424,10 +416,7 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
                     esc(&shown)
                 );
             }
-            let fixed: Vec<(Axis, usize)> = Axis::ALL
-                .iter()
-                .map(|a| (*a, cond.idx[*a as usize]))
-                .collect();
+            let fixed: Vec<(Axis, usize)> = Axis::ALL.iter().map(|a| (*a, cond.idx[a.0])).collect();
             for c in 0..study.controllers().len() {
                 let e = if *m == super::tables::SLIP {
                     cond.entries[c]
@@ -447,31 +436,25 @@ interval where there are three seeds or more. Click a heading to sort.</p>\n",
 }
 
 /// The `gripsweep trace` command that replays one run of this folder. `keep[k]`: whether to
-/// name the k-th axis of `matrix::AXIS_NAMES` (an axis with one value in the run can be left
-/// out: `trace` takes an axis's first value when it is not picked); the controller is always
-/// named.
+/// name the k-th of `run_format::axis_columns()` (every axis of the table, then the seed; an
+/// axis with one value in the run can be left out: `trace` takes an axis's first value when it
+/// is not picked); the controller is always named.
 pub fn trace_command(
     scenario_source: Option<&str>,
     c: &super::input::Cell,
-    keep: &[bool; 9],
+    keep: &[bool],
 ) -> String {
     let mut cmd = String::from("gripsweep trace");
     if let Some(src) = scenario_source {
         let _ = write!(cmd, " {}", shell_word(src));
     }
-    let picks = [
-        ("slope_deg", format!("{}", c.slope_deg)),
-        ("mu", format!("{}", c.mu)),
-        ("rate_hz", format!("{}", c.rate_hz)),
-        ("actuator", c.actuator.clone()),
-        ("controller", c.controller.clone()),
-        ("mass_scale", format!("{}", c.mass_scale)),
-        ("com_shift_mm", format!("{}", c.com_shift_mm)),
-        ("sensor_noise", format!("{}", c.sensor_noise)),
-        ("seed", format!("{}", c.seed)),
-    ];
-    for (i, (k, v)) in picks.into_iter().enumerate() {
-        if keep[i] || k == "controller" {
+    let picks = crate::run_format::AXES
+        .iter()
+        .zip(&c.axis_values)
+        .map(|(a, v)| (a.name, v.text()))
+        .chain([(crate::run_format::SEED, c.seed.to_string())]);
+    for (i, (k, v)) in picks.enumerate() {
+        if keep.get(i).copied().unwrap_or(true) || k == "controller" {
             let _ = write!(cmd, " --pick {}", shell_word(&format!("{k}={v}")));
         }
     }
@@ -550,21 +533,24 @@ fn watch_list(
     rows.truncate(MAX_WATCH_ROWS);
     // Axes the scenario gives more than one value (from the manifest, not from the rows: a
     // shard may hold one value of an axis that has several); every axis when it is not known.
-    let keep: [bool; 9] = crate::matrix::AXIS_NAMES.map(|name| {
-        let n = if name == "seed" {
-            manifest
-                .get("seeds")
-                .and_then(|v| v.as_u64())
-                .map(|n| n as usize)
-        } else {
-            manifest
-                .get("axes")
-                .and_then(|a| a.get(name))
-                .and_then(|v| v.as_array())
-                .map(|v| v.len())
-        };
-        n.is_none_or(|n| n > 1)
-    });
+    let keep: Vec<bool> = crate::run_format::axis_columns()
+        .into_iter()
+        .map(|name| {
+            let n = if name == "seed" {
+                manifest
+                    .get("seeds")
+                    .and_then(|v| v.as_u64())
+                    .map(|n| n as usize)
+            } else {
+                manifest
+                    .get("axes")
+                    .and_then(|a| a.get(name))
+                    .and_then(|v| v.as_array())
+                    .map(|v| v.len())
+            };
+            n.is_none_or(|n| n > 1)
+        })
+        .collect();
     out.push_str("<section id=\"watch\"><h2>Runs worth watching</h2>\n<p>The worst run of each \
 condition (a fall before a run that did not control the robot, before the largest slip) and every \
 other fall, most severe first. Each command, run where the scenario file is, writes the run's trace CSV and beside it \

@@ -8,68 +8,13 @@
 use std::collections::{HashMap, HashSet};
 use std::path::{Path, PathBuf};
 
-/// File names inside a run folder (the runner writes them; the report reads them).
-pub const CELLS_FILE: &str = "cells.csv";
-pub const TIMING_FILE: &str = "timing.csv";
-pub const MANIFEST_FILE: &str = "manifest.json";
-pub const ONSET_FILE: &str = "onset.csv";
+use crate::run_format::{AXES, AxisKind, AxisValue, METRICS};
+/// File names inside a run folder, the outcome enum and the column lists: the run format.
+pub use crate::run_format::{CELLS_FILE, MANIFEST_FILE, ONSET_FILE, TIMING_FILE};
 
-/// How a cell ended, as the runner writes it in the `status` column.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub enum Status {
-    Ok,
-    Fell,
-    Diverged,
-    Infeasible,
-    /// Stayed up but the law did not control the robot (torque limits, tracking, oscillation).
-    NoControl,
-    Error,
-}
-
-impl Status {
-    pub const ALL: [Status; 6] = [
-        Status::Ok,
-        Status::Infeasible,
-        Status::NoControl,
-        Status::Fell,
-        Status::Diverged,
-        Status::Error,
-    ];
-
-    pub fn name(self) -> &'static str {
-        match self {
-            Status::Ok => "ok",
-            Status::Fell => "fell",
-            Status::Diverged => "diverged",
-            Status::Infeasible => "infeasible",
-            Status::NoControl => "no-control",
-            Status::Error => "error",
-        }
-    }
-
-    fn parse(s: &str) -> Option<Status> {
-        Status::ALL.into_iter().find(|st| st.name() == s)
-    }
-
-    /// Runs whose numbers enter means and rankings: only those that held and whose law
-    /// controlled the robot and met its constraints. An infeasible or no-control run went the
-    /// whole duration, but what it measures is the law giving way, not the law; a run that
-    /// fell or diverged stopped early and its averages cover a different, shorter motion.
-    /// Every other outcome is counted and shown beside its condition, never ranked.
-    pub fn counts_for_means(self) -> bool {
-        matches!(self, Status::Ok)
-    }
-
-    /// Runs that stayed up to the end of the plan (whatever their law did).
-    pub fn held(self) -> bool {
-        matches!(self, Status::Ok | Status::Infeasible | Status::NoControl)
-    }
-
-    /// Runs the robot did not survive.
-    pub fn is_fall(self) -> bool {
-        matches!(self, Status::Fell | Status::Diverged)
-    }
-}
+/// How a cell ended, as the runner writes it in the `status` column
+/// ([`crate::run_format::Outcome`]; its `ALL` order is the outcomes table's column order).
+pub use crate::run_format::Outcome as Status;
 
 /// The per-cell metric columns of `cells.csv`, in file order.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
@@ -97,7 +42,7 @@ pub enum Metric {
     LawFailedShare,
     StanceOffGroundShare,
     TorqueFlipRate,
-    // issue 14 (world14): crate::world_metrics::COLUMNS
+    // The world metrics (issue 14; crate::world_metrics).
     TouchdownForcePeak,
     TorqueRatePeak,
     PushDisplacement,
@@ -139,39 +84,10 @@ impl Metric {
         Metric::StepLateShare,
     ];
 
-    /// Column name in `cells.csv` (and metric name in `summary.csv`).
+    /// Column name in `cells.csv` (and metric name in `summary.csv`): the run format's
+    /// [`METRICS`] entry at the same position.
     pub fn column(self) -> &'static str {
-        match self {
-            Metric::SimTime => "sim_time_s",
-            Metric::SlipMean => "slip_mean_mm",
-            Metric::SlipMax => "slip_max_mm",
-            Metric::SlipTotal => "slip_total_mm",
-            Metric::StancePhases => "stance_phases",
-            Metric::BasePosRms => "base_pos_rms_mm",
-            Metric::BaseOrientRms => "base_orient_rms_deg",
-            Metric::JointRms => "joint_rms_deg",
-            Metric::Progress => "progress_m",
-            Metric::ProgressPlanned => "progress_planned_m",
-            Metric::TorqueRms => "torque_rms_nm",
-            Metric::TorquePeak => "torque_peak_nm",
-            Metric::TorqueLimitShare => "torque_limit_share",
-            Metric::Energy => "energy_j",
-            Metric::FrictionUseMax => "friction_use_max",
-            Metric::FrictionOverShare => "friction_over_share",
-            Metric::LawTroubleShare => "law_trouble_share",
-            Metric::LawSolvedShare => "law_solved_share",
-            Metric::LawInfeasibleShare => "law_infeasible_share",
-            Metric::LawUnderactuatedShare => "law_underactuated_share",
-            Metric::LawFailedShare => "law_failed_share",
-            Metric::StanceOffGroundShare => "stance_off_ground_share",
-            Metric::TorqueFlipRate => "torque_flip_rate_hz",
-            Metric::TouchdownForcePeak => "touchdown_force_peak_bw",
-            Metric::TorqueRatePeak => "torque_rate_peak_nm_per_s",
-            Metric::PushDisplacement => "push_displacement_mm",
-            Metric::PushRecovery => "push_recovery_s",
-            Metric::StepEarlyShare => "step_early_share",
-            Metric::StepLateShare => "step_late_share",
-        }
+        METRICS[self as usize].name
     }
 
     /// Columns added after the first release of `cells.csv` (law-status shares, off-ground
@@ -213,6 +129,8 @@ pub struct Cell {
     pub mass_scale: f64,
     pub com_shift_mm: f64,
     pub sensor_noise: f64,
+    /// Every axis of the run format's table, in table order, as read (numbers finite).
+    pub axis_values: Vec<AxisValue>,
     pub seed: u64,
     pub status: Status,
     pub message: String,
@@ -434,26 +352,9 @@ fn read_plan_limits(path: &Path, v: &serde_json::Value) -> Result<Vec<PlanLimit>
         .collect()
 }
 
-/// The identity and axis columns of `cells.csv`, before the metrics.
-const CELL_KEY_COLUMNS: [&str; 13] = [
-    "cell_id",
-    "index",
-    "slope_deg",
-    "mu",
-    "rate_hz",
-    "actuator",
-    "controller",
-    "mass_scale",
-    "com_shift_mm",
-    "sensor_noise",
-    "seed",
-    "status",
-    "message",
-];
-
 /// Reads `cells.csv` and returns the cells in matrix order.
 pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
-    let mut required: Vec<&str> = CELL_KEY_COLUMNS.to_vec();
+    let mut required: Vec<&str> = crate::run_format::cell_columns();
     required.extend(
         Metric::ALL
             .iter()
@@ -480,7 +381,10 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
         let status = Status::parse(status_text).ok_or_else(|| {
             row.error(
                 "status",
-                &format!("unknown status '{status_text}'; expected one of ok, infeasible, no-control, fell, diverged, error"),
+                &format!(
+                    "unknown status '{status_text}'; expected one of {}",
+                    Status::names()
+                ),
             )
         })?;
         let mut metrics = [f64::NAN; Metric::ALL.len()];
@@ -493,6 +397,13 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
                 row.number(m.column())?
             };
         }
+        let axis_values = AXES
+            .iter()
+            .map(|a| match a.kind {
+                AxisKind::Number => row.axis_number(a.name).map(AxisValue::Number),
+                AxisKind::Name => row.name(a.name).map(AxisValue::Name),
+            })
+            .collect::<Result<Vec<_>, _>>()?;
         cells.push(Cell {
             id,
             index: row.integer("index")?,
@@ -504,6 +415,7 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
             mass_scale: row.axis_number("mass_scale")?,
             com_shift_mm: row.axis_number("com_shift_mm")?,
             sensor_noise: row.axis_number("sensor_noise")?,
+            axis_values,
             seed: row.integer("seed")?,
             status,
             message: row.text("message")?.to_string(),

@@ -7,7 +7,7 @@ use std::path::Path;
 use super::Computed;
 use super::input::Status;
 use super::stats::Stat;
-use super::tables::{Axis, Entry, Pivot, Study, Verdict};
+use super::tables::{Axis, Entry, N_AXES, Pivot, Study, Verdict};
 
 /// Columns after the condition keys.
 const TAIL: [&str; 8] = [
@@ -32,7 +32,7 @@ fn header() -> Vec<&'static str> {
 /// One output row under construction.
 struct Row {
     table: &'static str,
-    keys: [String; 7],
+    keys: [String; N_AXES],
     controller: String,
     metric: String,
     mean: String,
@@ -47,7 +47,7 @@ impl Row {
     fn new(table: &'static str, controller: &str, metric: &str) -> Row {
         Row {
             table,
-            keys: Default::default(),
+            keys: std::array::from_fn(|_| String::new()),
             controller: controller.to_string(),
             metric: metric.to_string(),
             mean: String::new(),
@@ -60,7 +60,7 @@ impl Row {
     }
 
     fn key(mut self, study: &Study, axis: Axis, value: usize) -> Row {
-        self.keys[axis as usize] = study.axes.value_raw(axis, value);
+        self.keys[axis.0] = study.axes.value_raw(axis, value);
         self
     }
 
@@ -205,7 +205,7 @@ pub fn write(path: &Path, study: &Study, computed: &Computed) -> Result<(), Stri
             }
             let mut r = Row::new("condition_slip", &study.controllers()[c], "slip_mean_mm");
             for a in Axis::ALL {
-                r = r.key(study, a, cond.idx[a as usize]);
+                r = r.key(study, a, cond.idx[a.0]);
             }
             let mut r = r.entry(e);
             r.mark = if e.stat.is_some() && !e.rankable() {
@@ -221,9 +221,9 @@ pub fn write(path: &Path, study: &Study, computed: &Computed) -> Result<(), Stri
         for t in tables {
             for (m, mu) in t.mus.iter().enumerate() {
                 let keyed = |mut r: Row| {
-                    r.keys[Axis::Mu as usize] = format!("{mu}");
-                    r.keys[Axis::Rate as usize] = format!("{}", t.rate_hz);
-                    r.keys[Axis::Actuator as usize] = t.actuator.clone();
+                    r.keys[Axis::Mu.0] = format!("{mu}");
+                    r.keys[Axis::Rate.0] = format!("{}", t.rate_hz);
+                    r.keys[Axis::Actuator.0] = t.actuator.clone();
                     r
                 };
                 let mut limit = keyed(Row::new("onset", "", "friction_angle_deg"));

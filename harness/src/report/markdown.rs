@@ -565,7 +565,7 @@ fn condition_text(study: &Study, cond: &Condition, axes: &[Axis]) -> String {
         return "the run's only condition".to_string();
     }
     axes.iter()
-        .map(|a| study.axes.value_text(*a, cond.idx[*a as usize]))
+        .map(|a| study.axes.value_text(*a, cond.idx[a.0]))
         .collect::<Vec<_>>()
         .join(", ")
 }
@@ -638,7 +638,7 @@ whose runs all ended ok, and {} none.\n",
             for a in &axes {
                 let mut per_value = vec![0usize; study.axes.len(*a)];
                 for w in &r.wins {
-                    per_value[conds[*w].idx[*a as usize]] += 1;
+                    per_value[conds[*w].idx[a.0]] += 1;
                 }
                 let listed: Vec<String> = per_value
                     .iter()
@@ -704,7 +704,7 @@ whose runs all ended ok, and {} none.\n",
     let tally = |a: Axis, v: usize, c: usize| -> (usize, usize) {
         let mut led = 0;
         let mut ran = 0;
-        for cond in conds.iter().filter(|k| k.idx[a as usize] == v) {
+        for cond in conds.iter().filter(|k| k.idx[a.0] == v) {
             if cond.entries[c].cells > 0 {
                 ran += 1;
                 if cond.verdict.leaders().contains(&c) {
@@ -741,7 +741,7 @@ it ran, by axis value:\n\n| axis value |",
         // Who leads most often at each value of the axes a designer can change.
         let design_axes: Vec<&Axis> = axes
             .iter()
-            .filter(|a| !matches!(a, Axis::Slope | Axis::Mu))
+            .filter(|a| !matches!(**a, Axis::Slope | Axis::Mu))
             .collect();
         for a in design_axes.iter().copied() {
             let parts: Vec<String> = (0..study.axes.len(*a))

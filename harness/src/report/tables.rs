@@ -8,79 +8,82 @@ use std::collections::{BTreeMap, HashMap};
 
 use super::input::{Cell, Metric, OnsetRow, Run, Status};
 use super::stats::{Stat, over_seeds, t_975};
+use crate::run_format::{AXES, AxisKind, AxisValue};
 
-/// The matrix axes a condition is made of (every axis but the seed and the controller).
+/// The number of condition axes: the run format's axes the report groups conditions by
+/// (every axis but the controller; the seed is not an axis).
+pub const N_AXES: usize = crate::run_format::condition_axis_count();
+
+/// A matrix axis a condition is made of: the `k`-th condition axis of the run format's table
+/// ([`crate::run_format::AXES`] without the controller), so an axis added there is a condition
+/// axis here, in every table, with no change to the report.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub enum Axis {
-    Slope,
-    Mu,
-    Rate,
-    Actuator,
-    MassScale,
-    ComShift,
-    Noise,
-}
+pub struct Axis(pub usize);
 
+/// The axes the report treats in its own way (the outcome map is slope × μ, the rate and
+/// actuator studies), by their place in the table; a test checks the names.
+#[allow(non_upper_case_globals)]
 impl Axis {
-    /// Every condition axis, in the order they are named in text and in `summary.csv`.
-    pub const ALL: [Axis; 7] = [
-        Axis::Slope,
-        Axis::Mu,
-        Axis::Rate,
-        Axis::Actuator,
-        Axis::MassScale,
-        Axis::ComShift,
-        Axis::Noise,
-    ];
+    pub const Slope: Axis = Axis(0);
+    pub const Mu: Axis = Axis(1);
+    pub const Rate: Axis = Axis(2);
+    pub const Actuator: Axis = Axis(3);
+
+    /// Every condition axis, in table order: the order they are named in text and in
+    /// `summary.csv`.
+    pub const ALL: [Axis; N_AXES] = {
+        let mut out = [Axis(0); N_AXES];
+        let mut i = 0;
+        while i < N_AXES {
+            out[i] = Axis(i);
+            i += 1;
+        }
+        out
+    };
+
+    /// The axis's entry in the run format's table.
+    pub fn def(self) -> &'static crate::run_format::Axis {
+        &AXES[crate::run_format::condition_axis(self.0)]
+    }
 
     /// Column name in `cells.csv` and `summary.csv`.
     pub fn column(self) -> &'static str {
-        match self {
-            Axis::Slope => "slope_deg",
-            Axis::Mu => "mu",
-            Axis::Rate => "rate_hz",
-            Axis::Actuator => "actuator",
-            Axis::MassScale => "mass_scale",
-            Axis::ComShift => "com_shift_mm",
-            Axis::Noise => "sensor_noise",
-        }
+        self.def().name
     }
 
     /// What the axis is, for people.
     pub fn label(self) -> &'static str {
-        match self {
-            Axis::Slope => "slope",
-            Axis::Mu => "friction coefficient μ",
-            Axis::Rate => "control rate",
-            Axis::Actuator => "actuator",
-            Axis::MassScale => "model mass scale",
-            Axis::ComShift => "model CoM shift",
-            Axis::Noise => "sensor noise",
-        }
+        self.def().label
+    }
+
+    fn is_numeric(self) -> bool {
+        self.def().kind == AxisKind::Number
     }
 }
 
 /// The distinct values of each axis: numbers ascending, names in matrix order.
 #[derive(Clone, Debug)]
 pub struct Axes {
-    numeric: [Vec<f64>; 7],
-    pub actuators: Vec<String>,
+    numeric: Vec<Vec<f64>>,
+    names: Vec<Vec<String>>,
     pub controllers: Vec<String>,
 }
 
 impl Axes {
     fn from_cells(cells: &[Cell]) -> Axes {
-        let mut numeric: [Vec<f64>; 7] = Default::default();
-        let mut actuators: Vec<String> = Vec::new();
+        let mut numeric: Vec<Vec<f64>> = vec![Vec::new(); N_AXES];
+        let mut names: Vec<Vec<String>> = vec![Vec::new(); N_AXES];
         let mut controllers: Vec<String> = Vec::new();
         for c in cells {
             for axis in Axis::ALL {
-                if let Some(v) = numeric_value(c, axis) {
-                    numeric[axis as usize].push(v);
+                match axis_value(c, axis) {
+                    AxisValue::Number(v) => numeric[axis.0].push(*v),
+                    AxisValue::Name(n) => {
+                        if !names[axis.0].contains(n) {
+                            names[axis.0].push(n.clone());
+                        }
+                    }
                 }
-            }
-            if !actuators.contains(&c.actuator) {
-                actuators.push(c.actuator.clone());
             }
             if !controllers.contains(&c.controller) {
                 controllers.push(c.controller.clone());
@@ -92,74 +95,55 @@ impl Axes {
         }
         Axes {
             numeric,
-            actuators,
+            names,
             controllers,
         }
     }
 
     /// Number of distinct values on an axis.
     pub fn len(&self, axis: Axis) -> usize {
-        match axis {
-            Axis::Actuator => self.actuators.len(),
-            _ => self.numeric[axis as usize].len(),
+        if axis.is_numeric() {
+            self.numeric[axis.0].len()
+        } else {
+            self.names[axis.0].len()
         }
     }
 
-    /// The numeric values of a numeric axis (empty for the actuator axis).
+    /// The numeric values of a numeric axis (empty for a name axis).
     pub fn numbers(&self, axis: Axis) -> &[f64] {
-        &self.numeric[axis as usize]
+        &self.numeric[axis.0]
     }
 
     fn index(&self, c: &Cell, axis: Axis) -> usize {
-        match numeric_value(c, axis) {
-            Some(v) => self.numeric[axis as usize]
+        match axis_value(c, axis) {
+            AxisValue::Number(v) => self.numeric[axis.0]
                 .iter()
-                .position(|x| *x == v)
+                .position(|x| x == v)
                 .unwrap_or(0),
-            None => self
-                .actuators
-                .iter()
-                .position(|a| *a == c.actuator)
-                .unwrap_or(0),
+            AxisValue::Name(n) => self.names[axis.0].iter().position(|a| a == n).unwrap_or(0),
         }
     }
 
     /// The value as written in `summary.csv` (shortest round-trip, or the name).
     pub fn value_raw(&self, axis: Axis, i: usize) -> String {
-        match axis {
-            Axis::Actuator => self.actuators.get(i).cloned().unwrap_or_default(),
-            _ => self.numeric[axis as usize]
+        if axis.is_numeric() {
+            self.numeric[axis.0]
                 .get(i)
                 .map(|v| format!("{v}"))
-                .unwrap_or_default(),
+                .unwrap_or_default()
+        } else {
+            self.names[axis.0].get(i).cloned().unwrap_or_default()
         }
     }
 
     /// The value with its unit, for people ("slope 15°", "μ 0.4", "100 Hz", "ideal", …).
     pub fn value_text(&self, axis: Axis, i: usize) -> String {
-        let raw = self.value_raw(axis, i);
-        match axis {
-            Axis::Slope => format!("slope {raw}°"),
-            Axis::Mu => format!("μ {raw}"),
-            Axis::Rate => format!("{raw} Hz"),
-            Axis::Actuator => raw,
-            Axis::MassScale => format!("model mass ×{raw}"),
-            Axis::ComShift => format!("model CoM shift {raw} mm"),
-            Axis::Noise => format!("sensor noise ×{raw}"),
-        }
+        (axis.def().value_label)(&self.value_raw(axis, i))
     }
 }
 
-fn numeric_value(c: &Cell, axis: Axis) -> Option<f64> {
-    match axis {
-        Axis::Slope => Some(c.slope_deg),
-        Axis::Mu => Some(c.mu),
-        Axis::Rate => Some(c.rate_hz),
-        Axis::Actuator => None,
-        Axis::MassScale => Some(c.mass_scale),
-        Axis::ComShift => Some(c.com_shift_mm),
-        Axis::Noise => Some(c.sensor_noise),
-    }
+fn axis_value(c: &Cell, axis: Axis) -> &AxisValue {
+    &c.axis_values[crate::run_format::condition_axis(axis.0)]
 }
 
 /// A quantity averaged in the tables: a `cells.csv` metric or one derived from them.
@@ -449,8 +433,8 @@ impl Verdict {
 
 /// The slip-floor rule: the lowest mean wins only if every other mean exceeds it by more than
 /// `floor`; every law within the floor of the lowest (difference ≤ floor) ties with it. A
-/// difference the plant's own jitter could produce is no evidence for either law (DESIGN.md,
-/// prototype findings: "never call one law better than another on differences below it").
+/// difference the plant's own jitter could produce is no evidence for either law, so no law is
+/// called better than another on a difference below it (README, "Outputs").
 pub fn judge(means: &[(usize, f64)], floor: f64) -> Verdict {
     let mut sorted: Vec<(usize, f64)> = means.iter().copied().filter(|m| m.1.is_finite()).collect();
     sorted.sort_by(|a, b| a.1.total_cmp(&b.1));
@@ -555,7 +539,7 @@ pub struct PivotRow {
 #[derive(Clone, Debug)]
 pub struct Condition {
     /// Value index on each axis of [`Axis::ALL`].
-    pub idx: [usize; 7],
+    pub idx: [usize; N_AXES],
     /// Mean slip per controller.
     pub entries: Vec<Entry>,
     /// Among the laws whose every run here ended `ok` within the plan's limit (see
@@ -612,7 +596,7 @@ pub struct Study<'a> {
     pub run: &'a Run,
     pub axes: Axes,
     /// Per cell (same order as `run.cells`): value index on each axis of [`Axis::ALL`].
-    keys: Vec<[usize; 7]>,
+    keys: Vec<[usize; N_AXES]>,
     ctrl: Vec<usize>,
     pub floor: f64,
 }
@@ -661,7 +645,7 @@ impl<'a> Study<'a> {
 
     /// The condition (value index on each axis of [`Axis::ALL`]) and the controller index of
     /// `run.cells[i]`.
-    pub fn place_of(&self, i: usize) -> ([usize; 7], usize) {
+    pub fn place_of(&self, i: usize) -> ([usize; N_AXES], usize) {
         (self.keys[i], self.ctrl[i])
     }
 
@@ -676,7 +660,7 @@ impl<'a> Study<'a> {
             .iter()
             .zip(self.keys.iter().zip(self.ctrl.iter()))
             .filter(move |(_, (key, c))| {
-                **c == ctrl && fixed.iter().all(|(axis, v)| key[*axis as usize] == *v)
+                **c == ctrl && fixed.iter().all(|(axis, v)| key[axis.0] == *v)
             })
             .map(|(cell, _)| cell)
     }
@@ -813,23 +797,23 @@ impl<'a> Study<'a> {
         let n_val = self.axes.len(axis);
         let mut matched = Vec::with_capacity(n_ctrl);
         // Per controller: the condition keys (axis index blanked) that qualify.
-        let mut qualifying: Vec<std::collections::HashSet<[usize; 7]>> = Vec::new();
+        let mut qualifying: Vec<std::collections::HashSet<[usize; N_AXES]>> = Vec::new();
         for c in 0..n_ctrl {
             // key without `axis` → (values seen, all counted)
-            let mut groups: HashMap<[usize; 7], (Vec<bool>, bool)> = HashMap::new();
+            let mut groups: HashMap<[usize; N_AXES], (Vec<bool>, bool)> = HashMap::new();
             for (cell, (key, cc)) in self.run.cells.iter().zip(self.keys.iter().zip(&self.ctrl)) {
                 if *cc != c {
                     continue;
                 }
                 let mut k = *key;
-                let v = k[axis as usize];
-                k[axis as usize] = usize::MAX;
+                let v = k[axis.0];
+                k[axis.0] = usize::MAX;
                 let g = groups.entry(k).or_insert((vec![false; n_val], true));
                 g.0[v] = true;
                 g.1 &= counts(cell);
             }
             let total = groups.len();
-            let ok: std::collections::HashSet<[usize; 7]> = groups
+            let ok: std::collections::HashSet<[usize; N_AXES]> = groups
                 .into_iter()
                 .filter(|(_, (seen, all_ok))| *all_ok && seen.iter().all(|s| *s))
                 .map(|(k, _)| k)
@@ -845,7 +829,7 @@ impl<'a> Study<'a> {
                         let in_set = |cell: &&Cell| {
                             let i = self.index_of(cell);
                             let mut k = self.keys[i];
-                            k[axis as usize] = usize::MAX;
+                            k[axis.0] = usize::MAX;
                             qualifying[c].contains(&k)
                         };
                         Entry::of_split(
@@ -917,14 +901,14 @@ impl<'a> Study<'a> {
     /// Every condition that has cells, in axis order, with its slip verdict.
     pub fn conditions(&self) -> Vec<Condition> {
         let n_ctrl = self.controllers().len();
-        let mut groups: HashMap<[usize; 7], Vec<Vec<&Cell>>> = HashMap::new();
+        let mut groups: HashMap<[usize; N_AXES], Vec<Vec<&Cell>>> = HashMap::new();
         for (cell, (key, c)) in self.run.cells.iter().zip(self.keys.iter().zip(&self.ctrl)) {
             groups
                 .entry(*key)
                 .or_insert_with(|| vec![Vec::new(); n_ctrl])[*c]
                 .push(cell);
         }
-        let mut keys: Vec<[usize; 7]> = groups.keys().copied().collect();
+        let mut keys: Vec<[usize; N_AXES]> = groups.keys().copied().collect();
         keys.sort();
         keys.into_iter()
             .map(|idx| {
@@ -1071,8 +1055,7 @@ impl<'a> Study<'a> {
         }
         // Rate ascending, actuators in the run's order (then the file's).
         let act_rank = |a: &str| {
-            self.axes
-                .actuators
+            self.axes.names[Axis::Actuator.0]
                 .iter()
                 .position(|x| x == a)
                 .unwrap_or(usize::MAX)
