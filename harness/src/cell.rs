@@ -479,8 +479,7 @@ impl<'a> CellSetup<'a> {
         );
         self.compute_us.push(t0.elapsed().as_secs_f64() * 1e6);
         self.metrics.control_step(self.last_law);
-        self.world_metrics
-            .control_step(&self.command, self.rate_hz);
+        self.world_metrics.control_step(&self.command, self.rate_hz);
         if self.command.iter().any(|x| !x.is_finite()) {
             return Err((
                 CellStatus::Diverged,

@@ -602,7 +602,6 @@ fn named_table(v: &AxisValue, neutral: &str, known: &[&str], table: &str) -> Res
     }
 }
 
-
 /// The number of condition axes ([`Axis::condition`]).
 pub const fn condition_axis_count() -> usize {
     let (mut i, mut n) = (0, 0);

@@ -827,9 +827,7 @@ pub fn parse_axes(table: &AxesFile, ctx: &AxisContext) -> Result<Axes, (String, 
                     (AxisKind::Name, toml::Value::String(n)) => Ok(AxisValue::Name(n.clone())),
                     // A yes/no axis (`patch_known`) is a name axis whose names are the
                     // booleans' text.
-                    (AxisKind::Name, toml::Value::Boolean(b)) => {
-                        Ok(AxisValue::Name(b.to_string()))
-                    }
+                    (AxisKind::Name, toml::Value::Boolean(b)) => Ok(AxisValue::Name(b.to_string())),
                     (AxisKind::Number, _) => {
                         Err(fail(format!("entry {}: expected a number", i + 1)))
                     }
