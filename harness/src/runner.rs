@@ -84,25 +84,12 @@ fn num(x: f64) -> String {
 }
 
 fn cell_record(cell: &Cell, out: &CellOutcome) -> Vec<String> {
-    // In `cells_header` order: identity and the first axes, the outcome, the metrics, the
-    // axes added since (`run_format::late_axis_columns`).
-    let id = cell.identity(cell.id());
-    let text = |col: &str| {
-        id.iter()
-            .find(|(n, _)| *n == col)
-            .map(|(_, v)| v.clone())
-            .unwrap_or_default()
-    };
-    let mut r: Vec<String> = crate::run_format::cell_columns()
-        .into_iter()
-        .take_while(|c| *c != "status")
-        .map(text)
-        .collect();
-    r.push(out.status.name().to_string());
-    r.push(out.message.clone());
-    r.extend(out.metrics.values().iter().map(|v| num(*v)));
-    r.extend(crate::run_format::late_axis_columns().into_iter().map(text));
-    r
+    cell.csv_record(
+        cell.id(),
+        out.status.name(),
+        &out.message,
+        out.metrics.values().iter().map(|v| num(*v)),
+    )
 }
 
 fn csv_line(fields: &[String]) -> String {

@@ -400,6 +400,11 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
         let axis_values = AXES
             .iter()
             .map(|a| match a.kind {
+                // An axis added after the folder was written reads as its neutral value (the
+                // value that reproduces the cells from before it existed).
+                _ if a.after_metrics() && !table.columns.contains_key(a.name) => a
+                    .neutral_value()
+                    .ok_or_else(|| row.error(a.name, "column missing")),
                 AxisKind::Number => row.axis_number(a.name).map(AxisValue::Number),
                 AxisKind::Name => row.name(a.name).map(AxisValue::Name),
             })
