@@ -99,7 +99,7 @@ pub struct CellMetrics {
     pub stance_off_ground_share: f64,
     pub torque_flip_rate_hz: f64,
     /// issue 14 (world14): impacts, torque rate, push response, early/late steps
-    /// (`crate::world_metrics::COLUMNS`, written after these).
+    /// (`crate::world_metrics::COLUMNS`, the last six of `run_format::METRICS`).
     pub world: crate::world_metrics::WorldMetrics,
 }
 

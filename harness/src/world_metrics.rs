@@ -26,7 +26,8 @@ pub const RECOVERY_FLOOR_MM: f64 = 5.0;
 /// Late: no contact within this share of the swing's duration after the planned touchdown.
 pub const LATE_SHARE: f64 = 0.1;
 
-/// The columns these metrics add to `cells.csv`, in order.
+/// The columns these metrics add to `cells.csv`, in order: the last six of
+/// [`crate::run_format::METRICS`] (a test checks).
 pub const COLUMNS: [&str; 6] = [
     "touchdown_force_peak_bw",
     "torque_rate_peak_nm_per_s",
@@ -256,4 +257,13 @@ impl WorldAccumulator {
 /// Base position error against the plan, m.
 pub fn base_error(base: &Vec3, plan_base: &Vec3) -> f64 {
     (base - plan_base).norm()
+}
+
+#[cfg(test)]
+mod columns_tests {
+    #[test]
+    fn the_world_columns_end_the_run_formats_metric_list() {
+        let m = crate::run_format::metric_columns();
+        assert_eq!(&m[m.len() - super::COLUMNS.len()..], &super::COLUMNS[..]);
+    }
 }
