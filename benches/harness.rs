@@ -76,7 +76,7 @@ fn replay(s: &Scenario, robot: &gripsweep::robot::LoadedRobot, cell: &Cell) -> P
             Ok(())
         };
         let t2 = Instant::now();
-        setup.actuate();
+        setup.actuate(t);
         let stepped = control.and_then(|_| setup.step_plant());
         let t3 = Instant::now();
         let judged = stepped.and_then(|_| {

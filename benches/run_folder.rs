@@ -44,13 +44,13 @@ fn main() {
     let mut rows: Vec<Vec<String>> = cells
         .iter()
         .map(|c| {
-            let mut r: Vec<String> = c.identity(c.id()).into_iter().map(|(_, v)| v).collect();
-            r.extend(["ok".into(), String::new()]);
-            r.extend(
+            c.csv_record(
+                c.id(),
+                "ok",
+                "",
                 (0..CellMetrics::COLUMNS.len())
                     .map(|k| format!("{}", 0.1234567 * (k + c.index) as f64)),
-            );
-            r
+            )
         })
         .collect();
     rows.shuffle(&mut rng);

@@ -7,6 +7,7 @@
 
 use gripsweep::plant::actuator::ActuatorKind;
 use gripsweep::plant::terrain::{FOOT_FRICTION, GROUND_GROUP, ROBOT_GROUP, Slope, Terrain};
+use gripsweep::plant::world::{Ground, PatchRect, TerrainVariant};
 use gripsweep::plant::{Plant, PlantSettings, configured_world};
 use gripsweep::robot::LoadedRobot;
 use gripsweep_controllers::algorithms::{Workspace, forward_dynamics, nonlinear_effects};
@@ -20,10 +21,16 @@ const G: f64 = 9.81;
 /// A 1 kg, 0.2 m cube released at rest on the plant's slope with the plant's combine rule;
 /// returns its displacement along the slope (downhill positive) at 0.5 s and 1.0 s.
 fn block_on_slope(angle_deg: f64, mu: f64) -> (f64, f64) {
+    block_on_ground(&Slope::degrees(angle_deg), angle_deg, mu)
+}
+
+/// [`block_on_slope`] on any ground whose surface at the origin is the plane of `angle_deg`
+/// facing uphill (issue 14: the same check per friction patch).
+fn block_on_ground(ground: &dyn Terrain, angle_deg: f64, mu: f64) -> (f64, f64) {
     let settings = PlantSettings::default();
     let mut world = configured_world(&settings);
     let slope = Slope::degrees(angle_deg);
-    slope.build(&mut world.colliders, mu);
+    ground.build(&mut world.colliders, mu);
     let n = slope.normal_at(0.0, 0.0);
     let h = 0.1;
     let centre = n * h;
@@ -91,6 +98,50 @@ fn block_on_incline_obeys_coulombs_law() {
         }
     }
 }
+
+// --- issue 14 (world14): Coulomb's law per friction patch ---
+/// The block on a patch of μ_p inside ground of another μ (0.9 or 0.05, so the ground's own
+/// value would give the other answer): it slides iff tan θ > μ_p, with a = g (sin θ − μ_p
+/// cos θ) (the textbook law above). The patch spans the block's whole slide (u from −4 m to
+/// 1 m); the ground's boxes are split at its edges.
+#[test]
+fn block_on_a_friction_patch_obeys_coulombs_law_with_the_patch_mu() {
+    for (mu_p, ground_mu) in [(0.2, 0.9), (0.5, 0.05)] {
+        let friction_angle = f64::atan(mu_p).to_degrees();
+        for offset in [-4.0, 4.0] {
+            let angle = friction_angle + offset;
+            let patch = PatchRect {
+                u0: -4.0,
+                u1: 1.0,
+                v0: -0.5,
+                v1: 0.5,
+                mu: mu_p,
+            };
+            let ground = Ground::plane(angle, 0.0).with(&TerrainVariant::PLANE, 0, Some(patch));
+            assert_eq!(ground.friction_at(0.0, 0.0, ground_mu), mu_p);
+            assert_eq!(ground.friction_at(0.0, 0.8, ground_mu), ground_mu);
+            let (d_half, d_full) = block_on_ground(&ground, angle, ground_mu);
+            let th = angle.to_radians();
+            let a_theory = G * (th.sin() - mu_p * th.cos());
+            if a_theory <= 0.0 {
+                assert!(
+                    d_full.abs() < 1e-4,
+                    "patch μ {mu_p}, {angle:.2}°: block crept {d_full} m"
+                );
+            } else {
+                let a = (d_full - d_half) / (0.5 * (1.0 - 0.25));
+                eprintln!(
+                    "patch μ {mu_p} (ground {ground_mu}), {angle:.2}°: a = {a:.5}, theory {a_theory:.5}"
+                );
+                assert!(
+                    (a - a_theory).abs() < 0.01 * a_theory,
+                    "patch μ {mu_p}, {angle:.2}°: a = {a}, theory {a_theory}"
+                );
+            }
+        }
+    }
+}
+// --- end issue 14 ---
 
 fn nominal_state(robot: &LoadedRobot) -> (DVector<f64>, DVector<f64>) {
     let model = &robot.model;

@@ -8,7 +8,8 @@ use crate::metrics::{
 };
 use crate::planner::{Gait, Plan, PlanSample};
 use crate::plant::actuator::Actuator;
-use crate::plant::terrain::{Slope, Terrain};
+use crate::plant::terrain::Terrain;
+use crate::plant::world::{Ground, PatchRect, PatchShape, PushVariant, TerrainVariant, push_force};
 use crate::plant::{Plant, PlantSettings};
 use crate::robot::LoadedRobot;
 use crate::run_format::Outcome as CellStatus;
@@ -92,10 +93,10 @@ pub fn controller_model(truth: &Model, mass_scale: f64, com_shift_mm: f64) -> Mo
     m
 }
 
-/// Law settings for a cell: the ground normal of its slope and the estimated μ.
+/// Law settings for a cell: the ground normal of its (nominal) terrain and the estimated μ.
 pub fn law_settings(
     base: &LawSettings,
-    slope: &Slope,
+    slope: &dyn Terrain,
     mu: f64,
     mu_estimate_scale: f64,
 ) -> LawSettings {
@@ -175,6 +176,11 @@ pub struct CellSpec {
     /// A piped law (`[external.<name>]`): the cell's law is served by a child process taken
     /// from this law's pool instead of the registry.
     pub external: Option<std::sync::Arc<crate::pipe_law::ExternalLaw>>,
+    /// The world the plan does not see (issue 14): the cell's `[terrain.<name>]` (the plane
+    /// when `terrain = "plane"`), `[patch.<name>]` and `[push.<name>]` (`None` at "none").
+    pub terrain: TerrainVariant,
+    pub patch: Option<(String, PatchShape)>,
+    pub push: Option<PushVariant>,
 }
 
 impl CellSpec {
@@ -183,6 +189,14 @@ impl CellSpec {
         CellSpec {
             law: s.law_settings_for(cell.controller(), cell.rate_hz(), cell.actuator()),
             external: s.external_law(cell.controller()).cloned(),
+            mu_estimate_scale: cell.number("mu_estimate_scale"),
+            terrain: s.world.terrain(cell.name("terrain")),
+            patch: s
+                .world
+                .patch
+                .get(cell.name("patch"))
+                .map(|p| (cell.name("patch").to_string(), p.clone())),
+            push: s.world.push.get(cell.name("push")).cloned(),
             ..CellSpec::scenario_defaults(s)
         }
     }
@@ -200,6 +214,9 @@ impl CellSpec {
             falls: s.falls.clone(),
             body_height: s.body_height,
             external: None,
+            terrain: TerrainVariant::PLANE,
+            patch: None,
+            push: None,
         }
     }
 }
@@ -238,13 +255,19 @@ pub struct FallLimits {
 pub struct CellSetup<'a> {
     pub model: &'a Model,
     pub plan: Cow<'a, Plan>,
-    pub slope: Slope,
+    /// The nominal plane (slope and heading) the plan and the law see; the plant's ground adds
+    /// what they do not (step, bumps, friction patch).
+    pub slope: Ground,
     pub plant: Plant,
     pub actuators: Vec<Box<dyn Actuator>>,
     pub law: Box<dyn ControlLaw>,
     pub sensors: Sensors,
     pub falls: FallLimits,
     pub metrics: MetricsAccumulator,
+    /// The world metrics (issue 14; [`crate::world_metrics`]).
+    pub world_metrics: crate::world_metrics::WorldAccumulator,
+    /// The cell's push and its start time, s (`None`: no push).
+    pub push: Option<(PushVariant, f64)>,
     /// The plan's trunk height, m (for the no-control test).
     pub body_height: f64,
     pub dt: f64,
@@ -252,6 +275,8 @@ pub struct CellSetup<'a> {
     pub steps: usize,
     /// Plant steps per control step.
     pub every: usize,
+    /// The control rate, Hz.
+    pub rate_hz: f64,
     rng: ChaCha8Rng,
     q: DVector<f64>,
     v: DVector<f64>,
@@ -274,8 +299,9 @@ pub struct CellSetup<'a> {
 pub type Stop = (CellStatus, String);
 
 impl<'a> CellSetup<'a> {
-    /// Build a cell's setup. `plan`: one built beforehand for the cell's slope (plans depend
-    /// only on the robot, the slope, the gait and the duration, so a run shares one per slope).
+    /// Build a cell's setup. `plan`: one built beforehand for the cell's slope and heading
+    /// (plans depend only on the robot, the nominal plane, the gait and the duration, so a run
+    /// shares one per slope).
     pub fn build(
         robot: &'a LoadedRobot,
         cell: &Cell,
@@ -283,7 +309,9 @@ impl<'a> CellSetup<'a> {
         plan: Option<&'a Plan>,
     ) -> Result<CellSetup<'a>, String> {
         let model = &robot.model;
-        let slope = Slope::degrees(cell.slope_deg());
+        // The planner plans on the nominal plane (slope and heading); the plant's ground adds
+        // what the plan does not see (step, bumps, friction patch).
+        let slope = Ground::plane(cell.slope_deg(), cell.number("heading_deg"));
         let plan = match plan {
             Some(p) => Cow::Borrowed(p),
             None => Cow::Owned(
@@ -292,8 +320,19 @@ impl<'a> CellSetup<'a> {
             ),
         };
         let dt = spec.plant.dt;
-        let mut plant = Plant::new(robot, Box::new(slope), cell.mu(), spec.plant);
         let feet = robot.foot_frames();
+        let (q0, _) = plan.initial_state();
+        let patch = patch_rect(robot, cell, spec, &slope, &q0)?;
+        let ground = Ground::plane(cell.slope_deg(), cell.number("heading_deg")).with(
+            &spec.terrain,
+            cell.seed,
+            patch,
+        );
+        let mut plant = Plant::new(robot, Box::new(ground), cell.mu(), spec.plant);
+        let push = spec.push.clone().map(|p| {
+            let start = (p.cycle as f64 + p.phase) * plan.cycle_time();
+            (p, start)
+        });
         let nj = model.n_joints();
 
         // Actuators per joint, and the joint friction each model shows.
@@ -322,6 +361,18 @@ impl<'a> CellSetup<'a> {
         let law_model = controller_model(model, cell.mass_scale(), cell.com_shift_mm());
         let settings_law = LawSettings {
             foot_radius: robot.facts.feet.radius,
+            // A known patch gives each foot the μ̂ under its starting spot (a track patch stays
+            // under its foot all run).
+            mu_estimate_feet: match patch {
+                Some(p) if cell.name("patch_known") == "true" => foot_spots(robot, &slope, &q0)
+                    .iter()
+                    .map(|&(u, v)| {
+                        let mu = if p.contains(u, v) { p.mu } else { cell.mu() };
+                        mu * spec.mu_estimate_scale
+                    })
+                    .collect(),
+                _ => Vec::new(),
+            },
             ..law_settings(&spec.law, &slope, cell.mu(), spec.mu_estimate_scale)
         };
         // A piped law (`[external.<name>]`) is served by a child process; the others are built
@@ -357,6 +408,13 @@ impl<'a> CellSetup<'a> {
         let limits: Vec<f64> = model.joints.iter().map(|j| j.effort_limit).collect();
         let metrics =
             MetricsAccumulator::new(feet.len(), dt, cell.mu(), start).with_torque_limits(&limits);
+        let world_metrics = crate::world_metrics::WorldAccumulator::new(
+            feet.len(),
+            nj,
+            dt,
+            model.total_mass() * model.gravity.norm(),
+            push.as_ref().map(|(_, start)| *start),
+        );
         let sample = plan.new_sample();
         let reached = plan.new_sample();
         plant.state(&mut q, &mut v);
@@ -377,10 +435,13 @@ impl<'a> CellSetup<'a> {
                 max_tilt: spec.falls.max_tilt_deg.to_radians(),
             },
             metrics,
+            world_metrics,
+            push,
             body_height: spec.body_height,
             dt,
             steps,
             every,
+            rate_hz: cell.rate_hz(),
             rng,
             q_obs: q.clone(),
             v_obs: v.clone(),
@@ -459,6 +520,7 @@ impl<'a> CellSetup<'a> {
             return Err((CellStatus::Error, e));
         }
         self.metrics.control_step(self.last_law);
+        self.world_metrics.control_step(&self.command, self.rate_hz);
         if self.command.iter().any(|x| !x.is_finite()) {
             return Err((
                 CellStatus::Diverged,
@@ -468,12 +530,17 @@ impl<'a> CellSetup<'a> {
         Ok(())
     }
 
-    /// Actuate: each joint's actuator turns the command into the applied torque.
-    pub fn actuate(&mut self) {
+    /// Actuate: each joint's actuator turns the command into the applied torque; the cell's
+    /// push, if any, acts on the trunk.
+    pub fn actuate(&mut self, t: f64) {
         self.saturated = false;
         for (k, a) in self.actuators.iter_mut().enumerate() {
             self.applied[k] = a.drive(self.command[k]);
             self.saturated |= a.saturated();
+        }
+        if let Some((p, start)) = &self.push {
+            self.plant
+                .set_base_force(push_force(p, *start, t, self.dt, &self.slope));
         }
     }
 
@@ -507,12 +574,19 @@ impl<'a> CellSetup<'a> {
             &self.v.as_slice()[6..],
             self.saturated,
         );
+        self.world_metrics.step(
+            t + self.dt,
+            &self.sample.stance,
+            self.plant.feet(),
+            crate::world_metrics::base_error(&self.base.trans, &plan_base.trans),
+        );
     }
 
     /// Judge the step: a fall (the trunk low or tilted relative to the ground, or a non-foot
     /// link on the ground) stops the run.
     pub fn judge(&self, t: f64) -> Result<(), Stop> {
-        let (slope, base) = (&self.slope, &self.base);
+        // The plant's ground, step and bumps included.
+        let (slope, base) = (self.plant.terrain(), &self.base);
         let n = slope.normal_at(base.trans.x, base.trans.y);
         let height = (base.trans
             - Vec3::new(
@@ -585,7 +659,7 @@ impl<'a> CellSetup<'a> {
         if self.is_control_step(step) {
             self.control(t)?;
         }
-        self.actuate();
+        self.actuate(t);
         self.step_plant()?;
         self.measure(t);
         Ok(())
@@ -625,10 +699,12 @@ impl<'a> CellSetup<'a> {
         }
         let nj = self.joint_err.len();
         let end = Vec3::new(self.q[0], self.q[1], self.q[2]);
-        let uphill = self.slope.uphill();
-        let metrics = self
+        // Progress is measured along the walking direction (uphill at heading 0).
+        let uphill = self.slope.forward();
+        let mut metrics = self
             .metrics
             .finish(&end, &uphill, self.plan.planned_progress(), nj);
+        metrics.world = self.world_metrics.finish(self.plant.time());
         let (mut status, mut message) = stop.unwrap_or((CellStatus::Ok, String::new()));
         if status == CellStatus::Ok {
             if let Some(reason) = no_control_reason(&metrics, self.body_height) {
@@ -728,4 +804,59 @@ fn error_outcome(message: String) -> CellOutcome {
         child_p99_us: f64::NAN,
         wall_s: 0.0,
     }
+}
+
+/// Plane coordinates (u along the path, v to the left) of each foot's ground point at `q`.
+fn foot_spots(robot: &LoadedRobot, ground: &Ground, q: &DVector<f64>) -> Vec<(f64, f64)> {
+    let model = &robot.model;
+    let mut ws = gripsweep_controllers::algorithms::Workspace::new(model);
+    gripsweep_controllers::algorithms::forward_kinematics(model, &mut ws, q);
+    robot
+        .foot_frames()
+        .iter()
+        .map(|&f| {
+            let p = gripsweep_controllers::algorithms::frame_pose(model, &ws, f).trans;
+            ground.plane_coords(p.x, p.y)
+        })
+        .collect()
+}
+
+/// The cell's friction patch in plane coordinates (a track follows its foot's starting spot).
+fn patch_rect(
+    robot: &LoadedRobot,
+    cell: &Cell,
+    spec: &CellSpec,
+    ground: &Ground,
+    q0: &DVector<f64>,
+) -> Result<Option<PatchRect>, String> {
+    let Some((name, shape)) = &spec.patch else {
+        return Ok(None);
+    };
+    let mu = cell.number("patch_mu");
+    Ok(Some(match shape {
+        PatchShape::Strip { at, width } => PatchRect {
+            u0: *at,
+            u1: at + width,
+            v0: -1e3,
+            v1: 1e3,
+            mu,
+        },
+        PatchShape::Track { foot, width } => {
+            let names = &robot.facts.feet.frames;
+            let Some(i) = names.iter().position(|n| n == foot) else {
+                return Err(format!(
+                    "patch '{name}': field `foot` = '{foot}': allowed: one of the robot's feet ({})",
+                    names.join(", ")
+                ));
+            };
+            let (_, v) = foot_spots(robot, ground, q0)[i];
+            PatchRect {
+                u0: -1.0,
+                u1: 1e3,
+                v0: v - 0.5 * width,
+                v1: v + 0.5 * width,
+                mu,
+            }
+        }
+    }))
 }

@@ -22,7 +22,9 @@ pub mod run_folder;
 pub mod run_format;
 pub mod runner;
 pub mod scenario;
+pub mod scenario_world;
 pub mod tuning;
+pub mod world_metrics;
 
 pub use gripsweep_controllers as controllers;
 

@@ -39,8 +39,8 @@ impl Cell {
     pub fn probe(mu: f64, rate_hz: f64, actuator: ActuatorKind, controller: &str) -> Cell {
         let values = AXES
             .iter()
-            .map(|a| match (a.neutral, a.kind) {
-                (Some(x), _) => AxisValue::Number(x),
+            .map(|a| match (a.neutral_value(), a.kind) {
+                (Some(x), _) => x,
                 (None, crate::run_format::AxisKind::Number) => AxisValue::Number(f64::NAN),
                 (None, crate::run_format::AxisKind::Name) => AxisValue::Name(String::new()),
             })
@@ -138,6 +138,36 @@ impl Cell {
         );
         out.push((crate::run_format::SEED, self.seed.to_string()));
         out
+    }
+
+    /// A `cells.csv` row in [`crate::run_format::cells_header`] order: identity and the first
+    /// axes, the outcome, the metric texts, then the axes written after the metrics
+    /// ([`crate::run_format::late_axis_columns`]).
+    pub fn csv_record(
+        &self,
+        id: String,
+        status: &str,
+        message: &str,
+        metrics: impl IntoIterator<Item = String>,
+    ) -> Vec<String> {
+        let identity = self.identity(id);
+        let text = |col: &str| {
+            identity
+                .iter()
+                .find(|(n, _)| *n == col)
+                .map(|(_, v)| v.clone())
+                .unwrap_or_default()
+        };
+        let mut r: Vec<String> = crate::run_format::cell_columns()
+            .into_iter()
+            .take_while(|c| *c != "status")
+            .map(text)
+            .collect();
+        r.push(status.to_string());
+        r.push(message.to_string());
+        r.extend(metrics);
+        r.extend(crate::run_format::late_axis_columns().into_iter().map(text));
+        r
     }
 }
 

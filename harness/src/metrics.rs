@@ -98,14 +98,18 @@ pub struct CellMetrics {
     pub law_failed_share: f64,
     pub stance_off_ground_share: f64,
     pub torque_flip_rate_hz: f64,
+    /// issue 14 (world14): impacts, torque rate, push response, early/late steps
+    /// (`crate::world_metrics::COLUMNS`, the last six of `run_format::METRICS`).
+    pub world: crate::world_metrics::WorldMetrics,
 }
 
 impl CellMetrics {
     /// The metric columns, in file order: the run format's [`crate::run_format::METRICS`]
     /// (`values` must follow it; a test checks the count).
-    pub const COLUMNS: [&'static str; 23] = crate::run_format::metric_columns();
+    pub const COLUMNS: [&'static str; 29] = crate::run_format::metric_columns();
 
-    pub fn values(&self) -> [f64; 23] {
+    pub fn values(&self) -> [f64; 29] {
+        let w = self.world.values();
         [
             self.sim_time_s,
             self.slip_mean_mm,
@@ -130,6 +134,12 @@ impl CellMetrics {
             self.law_failed_share,
             self.stance_off_ground_share,
             self.torque_flip_rate_hz,
+            w[0],
+            w[1],
+            w[2],
+            w[3],
+            w[4],
+            w[5],
         ]
     }
 }
@@ -410,6 +420,7 @@ impl MetricsAccumulator {
             } else {
                 0.0
             },
+            world: Default::default(), // issue 14: filled by the cell
         }
     }
 }

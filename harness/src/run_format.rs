@@ -140,7 +140,7 @@ const fn metric(name: &'static str, unit: &'static str) -> MetricColumn {
 
 /// The metric columns of `cells.csv`, in file order (`metrics::CellMetrics::values` and the
 /// report's `Metric` follow it; a test checks both).
-pub const METRICS: [MetricColumn; 23] = [
+pub const METRICS: [MetricColumn; 29] = [
     metric("sim_time_s", "s"),
     metric("slip_mean_mm", "mm"),
     metric("slip_max_mm", "mm"),
@@ -164,6 +164,13 @@ pub const METRICS: [MetricColumn; 23] = [
     metric("law_failed_share", "1"),
     metric("stance_off_ground_share", "1"),
     metric("torque_flip_rate_hz", "Hz"),
+    // The world metrics (issue 14; crate::world_metrics), NaN where they do not apply.
+    metric("touchdown_force_peak_bw", "1"),
+    metric("torque_rate_peak_nm_per_s", "N·m/s"),
+    metric("push_displacement_mm", "mm"),
+    metric("push_recovery_s", "s"),
+    metric("step_early_share", "1"),
+    metric("step_late_share", "1"),
 ];
 
 /// The metric column names, in file order.
@@ -241,6 +248,11 @@ pub struct AxisContext<'a> {
     pub laws: &'a [&'a str],
     /// The actuator models (`axes.actuator`).
     pub actuators: &'a [&'a str],
+    /// The scenario's `[terrain.<name>]`, `[patch.<name>]`, `[push.<name>]` tables, by name
+    /// (`axes.terrain`, `axes.patch`, `axes.push` name one of them or the neutral name).
+    pub terrains: &'a [&'a str],
+    pub patches: &'a [&'a str],
+    pub pushes: &'a [&'a str],
 }
 
 /// How an axis enters the cell key (the key feeds the cell id and the RNG seed).
@@ -270,6 +282,9 @@ pub struct Axis {
     /// `None` where there is none (μ, the rate, names). Probes (the slip floor, the tuning
     /// runs) put every axis they do not set at it.
     pub neutral: Option<f64>,
+    /// The neutral value of a name axis (`plane`, `none`), `None` where there is none; the
+    /// name-axis counterpart of [`Axis::neutral`].
+    pub neutral_name: Option<&'static str>,
     /// What the axis is, for people (report text and headings).
     pub label: &'static str,
     /// A value with its unit for people ("slope 15°", "100 Hz"), from the canonical text.
@@ -284,8 +299,30 @@ impl Axis {
     /// leaves it out.
     pub fn key_part(&self, v: &AxisValue) -> Option<String> {
         match self.in_key {
-            InKey::UnlessNeutral if self.neutral.is_some() && v.number() == self.neutral => None,
+            InKey::UnlessNeutral if self.is_neutral(v) => None,
             _ => Some(format!("{}={}", self.name, v.text())),
+        }
+    }
+
+    /// Whether the axis's `cells.csv` column comes after the metrics ([`late_axis_columns`]).
+    pub fn after_metrics(&self) -> bool {
+        self.in_key == InKey::UnlessNeutral
+    }
+
+    /// Whether `v` is the axis's neutral value (number or name).
+    pub fn is_neutral(&self, v: &AxisValue) -> bool {
+        match v {
+            AxisValue::Number(x) => self.neutral == Some(*x),
+            AxisValue::Name(n) => self.neutral_name == Some(n.as_str()),
+        }
+    }
+
+    /// The neutral value, if the axis has one.
+    pub fn neutral_value(&self) -> Option<AxisValue> {
+        match (self.neutral, self.neutral_name) {
+            (Some(x), _) => Some(AxisValue::Number(x)),
+            (None, Some(n)) => Some(AxisValue::from(n)),
+            (None, None) => None,
         }
     }
 
@@ -344,12 +381,13 @@ const TEST_KNOB: Axis = Axis {
     check: |v, _| number_in(v, |x| (0.0..=10.0).contains(&x), "0 ≤ knob ≤ 10"),
     in_key: InKey::UnlessNeutral,
     neutral: Some(0.0),
+    neutral_name: None,
     label: "test knob",
     value_label: |t| format!("knob {t}"),
     condition: true,
 };
 
-const TABLE: [Axis; 8] = [
+const TABLE: [Axis; 15] = [
     Axis {
         name: "slope_deg",
         kind: AxisKind::Number,
@@ -357,6 +395,7 @@ const TABLE: [Axis; 8] = [
         check: |v, _| number_in(v, |x| x.abs() < 60.0, "|slope| < 60°"),
         in_key: InKey::Always,
         neutral: Some(0.0),
+        neutral_name: None,
         label: "slope",
         value_label: |t| format!("slope {t}°"),
         condition: true,
@@ -368,6 +407,7 @@ const TABLE: [Axis; 8] = [
         check: |v, _| number_in(v, |x| x > 0.0 && x <= 5.0, "0 < μ ≤ 5"),
         in_key: InKey::Always,
         neutral: None,
+        neutral_name: None,
         label: "friction coefficient μ",
         value_label: |t| format!("μ {t}"),
         condition: true,
@@ -391,6 +431,7 @@ const TABLE: [Axis; 8] = [
         },
         in_key: InKey::Always,
         neutral: None,
+        neutral_name: None,
         label: "control rate",
         value_label: |t| format!("{t} Hz"),
         condition: true,
@@ -402,6 +443,7 @@ const TABLE: [Axis; 8] = [
         check: |v, c| name_in(v, c.actuators, "allowed"),
         in_key: InKey::Always,
         neutral: None,
+        neutral_name: None,
         label: "actuator",
         value_label: |t| t.to_string(),
         condition: true,
@@ -413,6 +455,7 @@ const TABLE: [Axis; 8] = [
         check: |v, c| name_in(v, c.laws, "allowed"),
         in_key: InKey::Always,
         neutral: None,
+        neutral_name: None,
         label: "controller",
         value_label: |t| t.to_string(),
         condition: false,
@@ -424,6 +467,7 @@ const TABLE: [Axis; 8] = [
         check: |v, _| number_in(v, |x| x > 0.2 && x < 5.0, "0.2 < scale < 5"),
         in_key: InKey::Always,
         neutral: Some(1.0),
+        neutral_name: None,
         label: "model mass scale",
         value_label: |t| format!("model mass ×{t}"),
         condition: true,
@@ -435,6 +479,7 @@ const TABLE: [Axis; 8] = [
         check: |v, _| number_in(v, |x| x.abs() <= 200.0, "|shift| ≤ 200 mm"),
         in_key: InKey::Always,
         neutral: Some(0.0),
+        neutral_name: None,
         label: "model CoM shift",
         value_label: |t| format!("model CoM shift {t} mm"),
         condition: true,
@@ -446,11 +491,125 @@ const TABLE: [Axis; 8] = [
         check: |v, _| number_in(v, |x| (0.0..=100.0).contains(&x), "0 ≤ level ≤ 100"),
         in_key: InKey::Always,
         neutral: Some(0.0),
+        neutral_name: None,
         label: "sensor noise",
         value_label: |t| format!("sensor noise ×{t}"),
         condition: true,
     },
+    // The world axes (issue 14): the ground the plan does not see, pushes, the friction
+    // estimate. Named tables live in the scenario (crate::scenario_world).
+    Axis {
+        name: "heading_deg",
+        kind: AxisKind::Number,
+        default: |_| numbers(&[0.0]),
+        check: |v, _| {
+            number_in(
+                v,
+                |x| x.abs() <= 180.0,
+                "−180 to 180 (0: straight uphill, 90: across, uphill on the right)",
+            )
+        },
+        in_key: InKey::UnlessNeutral,
+        neutral: Some(0.0),
+        neutral_name: None,
+        label: "heading on the slope",
+        value_label: |t| format!("heading {t}°"),
+        condition: true,
+    },
+    Axis {
+        name: "terrain",
+        kind: AxisKind::Name,
+        default: |_| vec![AxisValue::from(PLANE)],
+        check: |v, c| named_table(v, PLANE, c.terrains, "terrain"),
+        in_key: InKey::UnlessNeutral,
+        neutral: None,
+        neutral_name: Some(PLANE),
+        label: "terrain",
+        value_label: |t| format!("terrain {t}"),
+        condition: true,
+    },
+    Axis {
+        name: "patch",
+        kind: AxisKind::Name,
+        default: |_| vec![AxisValue::from(NONE)],
+        check: |v, c| named_table(v, NONE, c.patches, "patch"),
+        in_key: InKey::UnlessNeutral,
+        neutral: None,
+        neutral_name: Some(NONE),
+        label: "friction patch",
+        value_label: |t| format!("patch {t}"),
+        condition: true,
+    },
+    Axis {
+        name: "patch_mu",
+        kind: AxisKind::Number,
+        // Only used where `patch` names a patch.
+        default: |_| numbers(&[0.1]),
+        check: |v, _| number_in(v, |x| x > 0.0 && x <= 5.0, "0 < μ ≤ 5"),
+        in_key: InKey::UnlessNeutral,
+        neutral: Some(0.1),
+        neutral_name: None,
+        label: "patch friction coefficient",
+        value_label: |t| format!("patch μ {t}"),
+        condition: true,
+    },
+    Axis {
+        name: "patch_known",
+        // true / false (a TOML boolean, spelled as its name).
+        kind: AxisKind::Name,
+        default: |_| vec![AxisValue::from("false")],
+        check: |v, _| name_in(v, &["false", "true"], "allowed"),
+        in_key: InKey::UnlessNeutral,
+        neutral: None,
+        neutral_name: Some("false"),
+        label: "patch known to the controller",
+        value_label: |t| match t {
+            "true" => "patch known".to_string(),
+            _ => "patch unknown".to_string(),
+        },
+        condition: true,
+    },
+    Axis {
+        name: "push",
+        kind: AxisKind::Name,
+        default: |_| vec![AxisValue::from(NONE)],
+        check: |v, c| named_table(v, NONE, c.pushes, "push"),
+        in_key: InKey::UnlessNeutral,
+        neutral: None,
+        neutral_name: Some(NONE),
+        label: "push",
+        value_label: |t| format!("push {t}"),
+        condition: true,
+    },
+    Axis {
+        name: "mu_estimate_scale",
+        kind: AxisKind::Number,
+        // `laws.mu_estimate_scale`, when given, replaces this default (scenario.rs).
+        default: |_| numbers(&[1.0]),
+        check: |v, _| number_in(v, |x| x > 0.0 && x <= 10.0, "0 < scale ≤ 10"),
+        in_key: InKey::UnlessNeutral,
+        neutral: Some(1.0),
+        neutral_name: None,
+        label: "friction estimate scale",
+        value_label: |t| format!("μ̂ ×{t}"),
+        condition: true,
+    },
 ];
+
+/// The neutral name of `axes.terrain`: the nominal plane.
+pub const PLANE: &str = "plane";
+/// The neutral name of `axes.patch` and `axes.push`: none.
+pub const NONE: &str = "none";
+
+/// A name axis whose values are the neutral name or a named scenario table.
+fn named_table(v: &AxisValue, neutral: &str, known: &[&str], table: &str) -> Result<(), String> {
+    match v {
+        AxisValue::Name(n) if n == neutral || known.contains(&n.as_str()) => Ok(()),
+        _ => Err(format!(
+            "allowed: {neutral} or the name of a [{table}.<name>] table"
+        )),
+    }
+}
 
 /// The number of condition axes ([`Axis::condition`]).
 pub const fn condition_axis_count() -> usize {
@@ -505,12 +664,22 @@ pub fn cell_key(values: &[AxisValue], seed: u32) -> String {
     parts.join(";")
 }
 
-/// The columns of `cells.csv` before the metrics: identity, the axes, the seed, the outcome.
+/// The columns of `cells.csv` before the metrics: identity, the axes of the first release
+/// ([`InKey::Always`]), the seed, the outcome.
 pub fn cell_columns() -> Vec<&'static str> {
     let mut h = vec!["cell_id", "index"];
-    h.extend(axis_columns());
-    h.extend(["status", "message"]);
+    h.extend(AXES.iter().filter(|a| !a.after_metrics()).map(|a| a.name));
+    h.extend([SEED, "status", "message"]);
     h
+}
+
+/// The axis columns after the metrics: every axis added since the first release
+/// ([`InKey::UnlessNeutral`]), so a file's first columns keep their places as axes are added.
+pub fn late_axis_columns() -> Vec<&'static str> {
+    AXES.iter()
+        .filter(|a| a.after_metrics())
+        .map(|a| a.name)
+        .collect()
 }
 
 /// Every column of `cells.csv`, in file order.
@@ -518,6 +687,7 @@ pub fn cells_header() -> Vec<String> {
     cell_columns()
         .into_iter()
         .chain(metric_columns())
+        .chain(late_axis_columns())
         .map(String::from)
         .collect()
 }

@@ -84,15 +84,12 @@ fn num(x: f64) -> String {
 }
 
 fn cell_record(cell: &Cell, out: &CellOutcome) -> Vec<String> {
-    let mut r: Vec<String> = cell
-        .identity(cell.id())
-        .into_iter()
-        .map(|(_, v)| v)
-        .collect();
-    r.push(out.status.name().to_string());
-    r.push(out.message.clone());
-    r.extend(out.metrics.values().iter().map(|v| num(*v)));
-    r
+    cell.csv_record(
+        cell.id(),
+        out.status.name(),
+        &out.message,
+        out.metrics.values().iter().map(|v| num(*v)),
+    )
 }
 
 fn csv_line(fields: &[String]) -> String {
@@ -662,7 +659,15 @@ pub fn run(s: &Scenario, opts: &RunOptions) -> Result<RunSummary, RunError> {
     parallel_units(
         threads,
         &todo,
-        |cell| run_cell_with_plan(&ctx, cell, plan_for(cell.slope_deg()), None),
+        // The shared plans face uphill; a cell with another heading plans its own.
+        |cell| {
+            let shared = if cell.number("heading_deg") == 0.0 {
+                plan_for(cell.slope_deg())
+            } else {
+                None
+            };
+            run_cell_with_plan(&ctx, cell, shared, None)
+        },
         |done_now, i, outcome| {
             let cell = todo[i];
             if outcome.status.is_failure() {

@@ -61,6 +61,13 @@ pub struct ScenarioFile {
     /// Piped laws declared by the user (`[external.<name>]`, see [`crate::pipe_law`]).
     #[serde(default)]
     pub external: toml::Table,
+    /// The world axes' named tables (issue 14; crate::scenario_world).
+    #[serde(default)]
+    pub terrain: BTreeMap<String, crate::scenario_world::TerrainFile>,
+    #[serde(default)]
+    pub patch: BTreeMap<String, crate::scenario_world::PatchFile>,
+    #[serde(default)]
+    pub push: BTreeMap<String, crate::scenario_world::PushFile>,
 }
 
 fn default_robot() -> String {
@@ -246,6 +253,8 @@ pub struct Scenario {
     /// Piped laws declared in `[external.<name>]`, each with its pool of child processes
     /// (shared by clones; the children leave when the last clone is dropped).
     pub external: Vec<std::sync::Arc<crate::pipe_law::ExternalLaw>>,
+    /// The `[terrain.<name>]`, `[patch.<name>]`, `[push.<name>]` tables.
+    pub world: crate::scenario_world::WorldTables,
 }
 
 /// The resolved axes: per axis of [`crate::run_format::AXES`], in table order, its values.
@@ -508,12 +517,22 @@ impl Scenario {
             }
         }
         let actuator_list: Vec<&str> = ActuatorKind::ALL.iter().map(|k| k.name()).collect();
+        let world = crate::scenario_world::parse_tables(&file.terrain, &file.patch, &file.push)
+            .map_err(|(field, msg)| fail(&field, msg))?;
+        let [terrains, patches, pushes] = world.names();
         let axis_ctx = AxisContext {
             plant_rate_hz: 1.0 / plant.dt,
             laws: &law_list,
             actuators: &actuator_list,
+            terrains: &terrains,
+            patches: &patches,
+            pushes: &pushes,
         };
-        let axes = parse_axes(&axes_table, &axis_ctx).map_err(|(field, msg)| fail(&field, msg))?;
+        let mut axes =
+            parse_axes(&axes_table, &axis_ctx).map_err(|(field, msg)| fail(&field, msg))?;
+        world
+            .check_axes(&axes.names("terrain"), &axes.names("patch"))
+            .map_err(|(field, msg)| fail(&field, msg))?;
         let rate_hz = axes.numbers("rate_hz");
         let controller = axes.names("controller");
         // The shortest cell: control steps at the slowest rate and stance phases to average.
@@ -542,6 +561,17 @@ impl Scenario {
         let laws = LawSettings::default();
         let (mu_estimate_scale, law_tables) = parse_law_tables(&file.laws, &controller, &rate_hz)
             .map_err(|(field, msg)| fail(&field, msg))?;
+        // `laws.mu_estimate_scale` (one value for the whole run) is the default of the
+        // `mu_estimate_scale` axis; giving both is ambiguous.
+        if mu_estimate_scale != 1.0 {
+            if file.axes.contains_key("mu_estimate_scale") {
+                return Err(fail(
+                    "axes.mu_estimate_scale",
+                    "given both here and as `laws.mu_estimate_scale`; give it in one place".into(),
+                ));
+            }
+            axes.values[axis("mu_estimate_scale")] = vec![AxisValue::Number(mu_estimate_scale)];
+        }
         let n = &file.noise;
         for (field, v) in [
             ("noise.joint_angle", n.joint_angle),
@@ -658,6 +688,7 @@ impl Scenario {
             falls: file.falls.clone(),
             onset: file.onset.clone(),
             external,
+            world,
         })
     }
 
@@ -707,6 +738,28 @@ impl Scenario {
                     self.source, robot.source
                 ))
             })?;
+            // Every heading of `axes.heading_deg` too (the plan walks across the slope).
+            for psi in self
+                .axes
+                .numbers("heading_deg")
+                .into_iter()
+                .filter(|&h| h != 0.0)
+            {
+                let ground = crate::plant::world::Ground::plane(deg, psi);
+                crate::planner::Plan::build(
+                    &robot.model,
+                    &robot.facts,
+                    &ground,
+                    &self.gait,
+                    self.duration,
+                )
+                .map_err(|e| {
+                    ScenarioError(format!(
+                        "{}: fields `gait` and `duration` on the {deg}° slope at heading {psi}° of `axes.heading_deg`: {e}",
+                        self.source
+                    ))
+                })?;
+            }
         }
         Ok(())
     }
@@ -784,6 +837,9 @@ pub fn parse_axes(table: &AxesFile, ctx: &AxisContext) -> Result<Axes, (String, 
                     (AxisKind::Number, toml::Value::Float(f)) => Ok(AxisValue::Number(*f)),
                     (AxisKind::Number, toml::Value::Integer(n)) => Ok(AxisValue::Number(*n as f64)),
                     (AxisKind::Name, toml::Value::String(n)) => Ok(AxisValue::Name(n.clone())),
+                    // A yes/no axis (`patch_known`) is a name axis whose names are the
+                    // booleans' text.
+                    (AxisKind::Name, toml::Value::Boolean(b)) => Ok(AxisValue::Name(b.to_string())),
                     (AxisKind::Number, _) => {
                         Err(fail(format!("entry {}: expected a number", i + 1)))
                     }

@@ -207,8 +207,14 @@ impl ConeProgram {
             self.b_vec[row + 1] = self.tau_limit[j] + body.rhs[6 + j];
             row += 2;
         }
-        let mu = set.mu_estimate * (1.0 - set.cone_margin);
         for c in 0..k {
+            // issue 14: a known friction patch gives its foot its own μ̂.
+            let mu_hat = set
+                .mu_estimate_feet
+                .get(body.stance[c])
+                .copied()
+                .unwrap_or(set.mu_estimate);
+            let mu = mu_hat * (1.0 - set.cone_margin);
             self.a_dense[(row, 3 * c)] = -mu;
             self.a_dense[(row + 1, 3 * c + 1)] = -1.0;
             self.a_dense[(row + 2, 3 * c + 2)] = -1.0;

@@ -95,6 +95,10 @@ pub struct LawSettings {
     pub load_floor_share: f64,
     /// The friction coefficient the controllers believe (the scenario's estimate).
     pub mu_estimate: f64,
+    /// Per-foot friction estimates (in the order of the law's feet), replacing `mu_estimate`
+    /// for those feet; empty: `mu_estimate` for every foot. (issue 14: a friction patch the
+    /// controllers know.)
+    pub mu_estimate_feet: Vec<f64>,
     /// Safety margin on μ̂ in the cone program: cones use μ̂ (1 − margin).
     pub cone_margin: f64,
     /// Minimum normal force per stance foot in the cone program, N.
@@ -170,6 +174,7 @@ impl Default for LawSettings {
             torque_weight: 1e-4,
             load_floor_share: 0.2,
             mu_estimate: 0.5,
+            mu_estimate_feet: Vec::new(),
             cone_margin: 0.1,
             min_normal_force: 2.0,
             ground_normal: Vec3::z(),

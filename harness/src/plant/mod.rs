@@ -11,6 +11,7 @@
 
 pub mod actuator;
 pub mod terrain;
+pub mod world;
 
 use crate::robot::LoadedRobot;
 use ::nalgebra::{DVector, UnitQuaternion};
@@ -105,6 +106,10 @@ pub struct Plant {
     tau: Vec<f64>,
     terrain: Box<dyn Terrain>,
     time: f64,
+    // --- issue 14 (world14): a push on the trunk ---
+    /// External force on the trunk at its centre of mass for the next step, world axes, N.
+    base_force: Vec3,
+    // --- end issue 14 ---
 }
 
 fn to_v(v: &Vec3) -> Vector {
@@ -354,6 +359,7 @@ impl Plant {
             tau: vec![0.0; model.n_joints()],
             terrain,
             time: 0.0,
+            base_force: Vec3::zeros(),
         };
         plant.index_dofs();
         let armature: Vec<f64> = model.joints.iter().map(|j| j.armature).collect();
@@ -540,6 +546,14 @@ impl Plant {
     }
 
     /// Joint torques (N·m or N, model joint order) applied during the following steps.
+    // --- issue 14 (world14) ---
+    /// Push the trunk with `f` (world axes, N, through its centre of mass) during every
+    /// following step until set again (zero: no push).
+    pub fn set_base_force(&mut self, f: Vec3) {
+        self.base_force = f;
+    }
+    // --- end issue 14 ---
+
     pub fn set_joint_torques(&mut self, tau: &[f64]) {
         self.tau.copy_from_slice(tau);
     }
@@ -577,6 +591,13 @@ impl Plant {
                 }
             }
         }
+        // --- issue 14 (world14): a push on the trunk, through its centre of mass (the rapier
+        // root body's frame origin) ---
+        if self.base_force != Vec3::zeros() {
+            let f = to_v(&self.base_force);
+            self.world.bodies[self.bodies[0]].add_force(f, true);
+        }
+        // --- end issue 14 ---
         self.world.step();
         self.time += self.settings.dt;
         if !self.world.quarantine().is_empty() {

@@ -42,10 +42,17 @@ pub enum Metric {
     LawFailedShare,
     StanceOffGroundShare,
     TorqueFlipRate,
+    // The world metrics (issue 14; crate::world_metrics).
+    TouchdownForcePeak,
+    TorqueRatePeak,
+    PushDisplacement,
+    PushRecovery,
+    StepEarlyShare,
+    StepLateShare,
 }
 
 impl Metric {
-    pub const ALL: [Metric; 23] = [
+    pub const ALL: [Metric; 29] = [
         Metric::SimTime,
         Metric::SlipMean,
         Metric::SlipMax,
@@ -69,6 +76,12 @@ impl Metric {
         Metric::LawFailedShare,
         Metric::StanceOffGroundShare,
         Metric::TorqueFlipRate,
+        Metric::TouchdownForcePeak,
+        Metric::TorqueRatePeak,
+        Metric::PushDisplacement,
+        Metric::PushRecovery,
+        Metric::StepEarlyShare,
+        Metric::StepLateShare,
     ];
 
     /// Column name in `cells.csv` (and metric name in `summary.csv`): the run format's
@@ -88,6 +101,12 @@ impl Metric {
                 | Metric::LawFailedShare
                 | Metric::StanceOffGroundShare
                 | Metric::TorqueFlipRate
+                | Metric::TouchdownForcePeak
+                | Metric::TorqueRatePeak
+                | Metric::PushDisplacement
+                | Metric::PushRecovery
+                | Metric::StepEarlyShare
+                | Metric::StepLateShare
         )
     }
 
@@ -381,6 +400,11 @@ pub fn read_cells(path: &Path) -> Result<Vec<Cell>, String> {
         let axis_values = AXES
             .iter()
             .map(|a| match a.kind {
+                // An axis added after the folder was written reads as its neutral value (the
+                // value that reproduces the cells from before it existed).
+                _ if a.after_metrics() && !table.columns.contains_key(a.name) => a
+                    .neutral_value()
+                    .ok_or_else(|| row.error(a.name, "column missing")),
                 AxisKind::Number => row.axis_number(a.name).map(AxisValue::Number),
                 AxisKind::Name => row.name(a.name).map(AxisValue::Name),
             })

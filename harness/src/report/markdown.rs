@@ -339,7 +339,13 @@ nothing across {}; the `{stem}` plot is not drawn.\n",
     let n_te = super::tables::TRACKING_EFFORT.len();
     measure_table(&mut out, study, &computed.per_controller[..n_te]);
     out.push_str("Slip, friction use and law health:\n\n");
-    measure_table(&mut out, study, &computed.per_controller[n_te..]);
+    // issue 14 (world14): slip and health end at the slip column; the world table follows.
+    let n_ch = n_te + super::tables::CONTACT_HEALTH.len() + 1;
+    measure_table(&mut out, study, &computed.per_controller[n_te..n_ch]);
+    if computed.per_controller.len() > n_ch {
+        out.push_str("Touchdown impacts, torque rate, pushes and step timing:\n\n");
+        measure_table(&mut out, study, &computed.per_controller[n_ch..]);
+    }
 
     // ---- outcomes -----------------------------------------------------------------------
     out.push_str("## Run outcomes\n\n");

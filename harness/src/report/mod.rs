@@ -78,10 +78,21 @@ pub(crate) struct Computed {
 impl Computed {
     fn new(study: &Study) -> Computed {
         let n_ctrl = study.controllers().len();
+        // issue 14 (world14): the world table only where the run has its columns.
+        let world: &[Measure] = if study.run.cells.iter().any(|c| {
+            tables::WORLD
+                .iter()
+                .any(|m| matches!(m, Measure::Plain(x) if c.metric(*x).is_finite()))
+        }) {
+            &tables::WORLD
+        } else {
+            &[]
+        };
         let per_controller = tables::TRACKING_EFFORT
             .iter()
             .chain(tables::CONTACT_HEALTH.iter())
             .chain(std::iter::once(&tables::SLIP))
+            .chain(world.iter())
             .map(|m| (*m, (0..n_ctrl).map(|c| study.entry(c, &[], *m)).collect()))
             .collect();
         let conditions = study.conditions();

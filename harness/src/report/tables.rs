@@ -204,6 +204,12 @@ impl Measure {
                 Metric::LawFailedShare => "steps the law failed (%)",
                 Metric::StanceOffGroundShare => "planned stance time off the ground (%)",
                 Metric::TorqueFlipRate => "torque reversals per second, worst joint",
+                Metric::TouchdownForcePeak => "peak touchdown force (body weights)",
+                Metric::TorqueRatePeak => "peak joint torque rate (N·m/s)",
+                Metric::PushDisplacement => "base displaced by the push (mm)",
+                Metric::PushRecovery => "recovery after the push (s)",
+                Metric::StepEarlyShare => "steps landing early (%)",
+                Metric::StepLateShare => "steps landing late (%)",
             },
             Measure::ProgressShare => "progress made (% of plan)",
         }
@@ -220,7 +226,9 @@ impl Measure {
                 | Metric::LawInfeasibleShare
                 | Metric::LawUnderactuatedShare
                 | Metric::LawFailedShare
-                | Metric::StanceOffGroundShare,
+                | Metric::StanceOffGroundShare
+                | Metric::StepEarlyShare
+                | Metric::StepLateShare,
             )
             | Measure::ProgressShare => 100.0,
             Measure::Plain(_) => 1.0,
@@ -252,6 +260,19 @@ pub const CONTACT_HEALTH: [Measure; 6] = [
     Measure::Plain(Metric::FrictionOverShare),
     Measure::Plain(Metric::LawTroubleShare),
 ];
+
+// --- issue 14 (world14) ---
+/// Impacts, torque rate, push response and step timing: a third per-controller table, shown
+/// when the run has any of these values (a run folder from before them has none).
+pub const WORLD: [Measure; 6] = [
+    Measure::Plain(Metric::TouchdownForcePeak),
+    Measure::Plain(Metric::TorqueRatePeak),
+    Measure::Plain(Metric::PushDisplacement),
+    Measure::Plain(Metric::PushRecovery),
+    Measure::Plain(Metric::StepEarlyShare),
+    Measure::Plain(Metric::StepLateShare),
+];
+// --- end issue 14 ---
 
 /// One table entry: a group of cells of one controller.
 #[derive(Clone, Copy, Debug, PartialEq)]
