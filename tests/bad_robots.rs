@@ -295,8 +295,15 @@ fn the_probe_robot_itself_loads() {
     facts.validate(&model).unwrap();
     let dir = scratch("valid");
     let (toml, _) = write_robot(&dir, "probe", PROBE_URDF, PROBE_TOML);
+    // The model and facts are valid (above); the `robot` command also runs the planner's
+    // stance check, which refuses a one-joint leg with the reason (a point foot needs three).
     let out = run_cli(&toml);
-    assert!(out.0 == Some(0), "the valid probe is refused: {}", out.1);
+    assert_eq!(out.0, Some(2), "{}", out.1);
+    assert!(
+        out.1.contains("needs at least 3 per leg") && out.1.contains("arm_pivot"),
+        "{}",
+        out.1
+    );
 }
 
 #[test]

@@ -452,7 +452,7 @@ fn external_tables_are_checked_field_by_field() {
                 prog.display()
             ),
             "`axes.controller`",
-            ", m (a program of your own: declare it in an [external.<name>] table)",
+            ", m. To bring your own",
         ),
     ];
     for (body, field, what) in cases {

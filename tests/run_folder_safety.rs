@@ -344,8 +344,11 @@ fn resume_and_merge_check_every_kept_row() {
         &before,
     );
     // A metric that is not a number.
-    let last = lines[4].rsplit_once(',').unwrap().0;
-    std::fs::write(&cells, good.replacen(lines[4], &format!("{last},abc"), 1)).unwrap();
+    let header: Vec<&str> = lines[0].split(',').collect();
+    let slip = header.iter().position(|c| *c == "slip_mean_mm").unwrap();
+    let mut row: Vec<&str> = lines[4].split(',').collect();
+    row[slip] = "abc";
+    std::fs::write(&cells, good.replacen(lines[4], &row.join(","), 1)).unwrap();
     let before = snapshot(&d);
     refused(
         &resume(),
@@ -354,6 +357,7 @@ fn resume_and_merge_check_every_kept_row() {
         &before,
     );
     // A row with a field missing.
+    let last = lines[4].rsplit_once(',').unwrap().0;
     std::fs::write(&cells, good.replacen(lines[4], last, 1)).unwrap();
     let before = snapshot(&d);
     refused(&resume(), &["cells.csv", "line 5"], &d, &before);

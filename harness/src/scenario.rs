@@ -508,8 +508,8 @@ impl Scenario {
                         return Err(fail(
                             "axes.controller",
                             format!(
-                                "{} (a program of your own in another language: declare it in an [external.<name>] table)",
-                                registry::with(|r| r.unknown(c))
+                                "unknown controller '{c}'; allowed: {}. To bring your own, implement the ControlLaw trait in a crate that depends on gripsweep and register it (README, \"Bringing your own controller\"), or serve a program in any language over a pipe: declare it in an [external.<name>] table",
+                                law_list.join(", ")
                             ),
                         ));
                     }

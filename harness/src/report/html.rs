@@ -542,11 +542,12 @@ fn watch_list(
                     .and_then(|v| v.as_u64())
                     .map(|n| n as usize)
             } else {
-                manifest
-                    .get("axes")
-                    .and_then(|a| a.get(name))
-                    .and_then(|v| v.as_array())
-                    .map(|v| v.len())
+                // An axis a folder's manifest does not list (written before the axis existed)
+                // ran at its neutral value only.
+                manifest.get("axes").and_then(|a| match a.get(name) {
+                    Some(v) => v.as_array().map(|v| v.len()),
+                    None => a.is_object().then_some(1),
+                })
             };
             n.is_none_or(|n| n > 1)
         })
