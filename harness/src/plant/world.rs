@@ -298,19 +298,12 @@ impl Ground {
     ) -> Collider {
         let centre_local = Vec3::new(0.5 * (u0 + u1), 0.5 * (v0 + v1), top - HALF_THICKNESS);
         let centre = self.frame() * centre_local;
-        let q = nalgebra::UnitQuaternion::from_rotation_matrix(
-            &nalgebra::Rotation3::from_matrix_unchecked(self.frame()),
-        );
-        ColliderBuilder::cuboid(0.5 * (u1 - u0), 0.5 * (v1 - v0), HALF_THICKNESS)
-            .position(Pose::from_parts(
-                Vector::new(centre.x, centre.y, centre.z),
-                Rotation::from_xyzw(q.i, q.j, q.k, q.w),
-            ))
-            .friction(mu)
-            .friction_combine_rule(CoefficientCombineRule::Min)
-            .restitution(0.0)
-            .collision_groups(ground_groups())
-            .build()
+        ground_collider(
+            ColliderBuilder::cuboid(0.5 * (u1 - u0), 0.5 * (v1 - v0), HALF_THICKNESS),
+            self.frame(),
+            centre,
+            mu,
+        )
     }
 
     fn height_field(&self, b: &BumpField, mu: f64) -> Collider {
@@ -328,20 +321,13 @@ impl Ground {
             b.height(u, v)
         });
         let rot = Mat3::from_columns(&[self.t1, self.n, -self.t2]);
-        let q = nalgebra::UnitQuaternion::from_rotation_matrix(
-            &nalgebra::Rotation3::from_matrix_unchecked(rot),
-        );
         let c = self.t1 * uc + self.t2 * vc;
-        ColliderBuilder::heightfield(array, Vector::new(lu, 1.0, lv))
-            .position(Pose::from_parts(
-                Vector::new(c.x, c.y, c.z),
-                Rotation::from_xyzw(q.i, q.j, q.k, q.w),
-            ))
-            .friction(mu)
-            .friction_combine_rule(CoefficientCombineRule::Min)
-            .restitution(0.0)
-            .collision_groups(ground_groups())
-            .build()
+        ground_collider(
+            ColliderBuilder::heightfield(array, Vector::new(lu, 1.0, lv)),
+            rot,
+            c,
+            mu,
+        )
     }
 }
 
@@ -471,6 +457,25 @@ pub fn push_direction(p: &PushVariant, ground: &Ground) -> Vec3 {
     let left = ground.n.cross(&up);
     let a = p.direction_deg.to_radians();
     up * a.cos() + left * a.sin()
+}
+
+/// A piece of ground: the shape placed at `centre` with orientation `rot` (columns: the shape's
+/// local axes in the world), friction μ combined by the minimum, no restitution, in the ground's
+/// collision groups.
+fn ground_collider(shape: ColliderBuilder, rot: Mat3, centre: Vec3, mu: f64) -> Collider {
+    let q = nalgebra::UnitQuaternion::from_rotation_matrix(
+        &nalgebra::Rotation3::from_matrix_unchecked(rot),
+    );
+    shape
+        .position(Pose::from_parts(
+            Vector::new(centre.x, centre.y, centre.z),
+            Rotation::from_xyzw(q.i, q.j, q.k, q.w),
+        ))
+        .friction(mu)
+        .friction_combine_rule(CoefficientCombineRule::Min)
+        .restitution(0.0)
+        .collision_groups(ground_groups())
+        .build()
 }
 
 #[cfg(test)]
