@@ -329,6 +329,44 @@ pub fn point_jacobian(
     }
 }
 
+/// The same translational Jacobian as [`point_jacobian`], written as three contiguous columns
+/// of a column-major nv × 3 block (`out[r * nv + c]` = row r, v column c; J_pᵀ, as the laws
+/// stack it), without the 6 × nv scratch: columns outside the frame's chain are zeroed.
+pub fn point_jacobian_transposed(
+    model: &Model,
+    ws: &Workspace,
+    frame: usize,
+    offset: &Vec3,
+    out: &mut [f64],
+) {
+    let nv = model.nv();
+    out[..3 * nv].fill(0.0);
+    let f = &model.frames[frame];
+    let p = ws.o_m[f.body].act_point(&f.placement.trans);
+    point_jacobian_columns(model, ws, f.body, &p, |col, lin, ang| {
+        let v = lin + ang.cross(offset);
+        for r in 0..3 {
+            out[r * nv + col] = v[r];
+        }
+    });
+}
+
+/// The v columns a frame's Jacobian can touch: the base's (0..6 floating) and the joints on its
+/// chain to the root, ascending.
+pub fn frame_support(model: &Model, frame: usize) -> Vec<usize> {
+    let nvb = model.nv_base();
+    let mut cols: Vec<usize> = (0..nvb).collect();
+    let mut chain = Vec::new();
+    let mut b = model.frames[frame].body;
+    while b != 0 {
+        chain.push(nvb + b - 1);
+        b = model.joints[b - 1].parent;
+    }
+    chain.sort_unstable();
+    cols.extend(chain);
+    cols
+}
+
 /// World-aligned Jacobian of a frame (after forward kinematics): rows `row0..row0+3` of `out`
 /// get the translational part of the frame origin, and, when `angular` is set, rows
 /// `row0+3..row0+6` the rotational part. Columns outside the frame's chain are zeroed.

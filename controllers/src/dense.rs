@@ -102,16 +102,24 @@ pub fn solve_upper_transposed(r: &DMatrix<f64>, n: usize, b: &mut [f64]) {
 /// contiguous column slices (column-major; Golub & Van Loan alg. 4.2.2, the gaxpy form by
 /// columns), skipping zero multipliers, so a block-diagonal matrix costs its blocks.
 pub fn cholesky_in_place(a: &mut DMatrix<f64>, n: usize) -> bool {
+    cholesky_in_place_at(a, 0, n)
+}
+
+/// [`cholesky_in_place`] on the n × n diagonal block whose top-left entry is (off, off): one
+/// diagonal block of a block-diagonal matrix factorised on its own (the same operations, in
+/// the same order, as the whole matrix's factorisation spends on that block).
+pub fn cholesky_in_place_at(a: &mut DMatrix<f64>, off: usize, n: usize) -> bool {
     let ld = a.nrows();
     let a = a.as_mut_slice();
-    for j in 0..n {
-        // Column j −= Σ_{k<j} L[j,k] · column k (rows j..n).
-        for k in 0..j {
+    let end = off + n;
+    for j in off..end {
+        // Column j −= Σ_{k<j} L[j,k] · column k (rows j..end).
+        for k in off..j {
             let ljk = a[k * ld + j];
             if ljk != 0.0 {
                 let (head, tail) = a.split_at_mut(j * ld);
-                let ck = &head[k * ld + j..k * ld + n];
-                let cj = &mut tail[j..n];
+                let ck = &head[k * ld + j..k * ld + end];
+                let cj = &mut tail[j..end];
                 cj.iter_mut().zip(ck).for_each(|(y, x)| *y -= ljk * x);
             }
         }
@@ -121,7 +129,7 @@ pub fn cholesky_in_place(a: &mut DMatrix<f64>, n: usize) -> bool {
         }
         let d = d.sqrt();
         let inv = 1.0 / d;
-        let cj = &mut a[j * ld + j..j * ld + n];
+        let cj = &mut a[j * ld + j..j * ld + end];
         cj[0] = d;
         cj[1..].iter_mut().for_each(|x| *x *= inv);
     }
@@ -137,11 +145,18 @@ pub fn min_pivot(l: &DMatrix<f64>, n: usize) -> f64 {
 /// Solve L Lᵀ x = b in place with the factor from [`cholesky_in_place`] (column slices; zero
 /// entries of the factor cost nothing).
 pub fn cholesky_solve(l: &DMatrix<f64>, n: usize, b: &mut [f64]) {
+    cholesky_solve_at(l, 0, n, b);
+}
+
+/// [`cholesky_solve`] with the factor of the diagonal block at (off, off) from
+/// [`cholesky_in_place_at`]; `b` holds that block's n entries.
+pub fn cholesky_solve_at(l: &DMatrix<f64>, off: usize, n: usize, b: &mut [f64]) {
     let ld = l.nrows();
     let l = l.as_slice();
+    let at = |j: usize| (off + j) * ld + off;
     // L y = b by columns.
     for j in 0..n {
-        let cj = &l[j * ld + j..j * ld + n];
+        let cj = &l[at(j) + j..at(j) + n];
         let yj = b[j] / cj[0];
         b[j] = yj;
         if yj != 0.0 {
@@ -153,7 +168,7 @@ pub fn cholesky_solve(l: &DMatrix<f64>, n: usize, b: &mut [f64]) {
     }
     // Lᵀ x = y: row i of Lᵀ is column i of L.
     for i in (0..n).rev() {
-        let ci = &l[i * ld + i..i * ld + n];
+        let ci = &l[at(i) + i..at(i) + n];
         let s: f64 = b[i + 1..n].iter().zip(&ci[1..]).map(|(x, y)| x * y).sum();
         b[i] = (b[i] - s) / ci[0];
     }

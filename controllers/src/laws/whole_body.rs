@@ -12,11 +12,14 @@
 
 use super::{ControlLaw, LawSettings, LawStatus, Observation, Target};
 use crate::algorithms::{
-    Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics, point_jacobian,
-    rnea_after_fk, velocities_and_bias,
+    Workspace, contact_point_bias_acceleration, crba_after_fk, forward_kinematics, frame_support,
+    point_jacobian_transposed, rnea_after_fk, velocities_and_bias,
 };
 use crate::configuration::difference_into;
-use crate::dense::{cholesky_in_place, cholesky_solve, householder_qr, min_pivot};
+use crate::dense::{
+    cholesky_in_place, cholesky_in_place_at, cholesky_solve, cholesky_solve_at, householder_qr,
+    min_pivot,
+};
 use crate::model::{Model, RootKind};
 use crate::spatial::{Mat3, Vec3};
 use nalgebra::{DMatrix, DVector};
@@ -32,8 +35,13 @@ pub struct WholeBody {
     /// Feet in stance this step (indices into `feet`), and their count.
     pub stance: Vec<usize>,
     pub k: usize,
-    jac3: DMatrix<f64>,
-    jac6: DMatrix<f64>,
+    /// The v columns each foot's Jacobian can touch (base, then its chain; ascending): the
+    /// sums below run over these only, skipping terms that are exactly zero, so they equal the
+    /// dense sums bit for bit.
+    rows: Vec<Vec<usize>>,
+    /// Whether no two feet share a joint: then H of [`WholeBody::solve_in_forces`] is block
+    /// diagonal (one 3 × 3 block per stance foot) and is factorised and solved by blocks.
+    legs_disjoint: bool,
     /// Offset from each foot frame (the sphere centre) to its ground contact, −r n (world).
     contact_offset: Vec3,
     /// J_cᵀ of the stance feet (nv × 3k, world-aligned translational rows of each foot's
@@ -65,6 +73,8 @@ pub struct WholeBody {
     pub expected_load: Vec<f64>,
     scratch_n: DMatrix<f64>,
     scratch_v: Vec<f64>,
+    /// J_c⁺ correction of the reference acceleration, per v row.
+    corr: Vec<f64>,
     scratch_c: Vec<f64>,
     /// Whether `qr` and `q` hold this step's decomposition (computed only when a law needs
     /// it: see [`WholeBody::ensure_qr`]).
@@ -91,14 +101,18 @@ impl WholeBody {
         let nj = model.n_joints();
         let nf = feet.len();
         let ws = Workspace::new(&model);
+        let rows: Vec<Vec<usize>> = feet.iter().map(|&f| frame_support(&model, f)).collect();
+        let nvb = model.nv_base();
+        let legs_disjoint = (0..nf)
+            .all(|a| (0..a).all(|b| rows[a][nvb..].iter().all(|r| !rows[b][nvb..].contains(r))));
         WholeBody {
+            rows,
+            legs_disjoint,
             ws,
             nv,
             nj,
             stance: Vec::with_capacity(nf),
             k: 0,
-            jac3: DMatrix::zeros(3, nv),
-            jac6: DMatrix::zeros(6, nv),
             contact_offset: -settings.ground_normal.normalize() * settings.foot_radius,
             jct: DMatrix::zeros(nv, 3 * nf),
             qr: DMatrix::zeros(nv, 3 * nf),
@@ -116,6 +130,7 @@ impl WholeBody {
             expected_load: vec![f64::NAN; nf],
             scratch_n: DMatrix::zeros(nv.max(nj), nv.max(nj)),
             scratch_v: vec![0.0; nv.max(nj)],
+            corr: vec![0.0; nv],
             scratch_c: vec![0.0; 3 * nf],
             qr_valid: false,
             gram: DMatrix::zeros(3 * nf, 3 * nf),
@@ -172,12 +187,9 @@ impl WholeBody {
             // Contact where the sphere touches the ground, not at its centre: forces there
             // carry no moment about the contact, and on a slope the lever arms differ.
             let d = self.contact_offset;
-            point_jacobian(model, ws, frame, &d, &mut self.jac6, &mut self.jac3, 0);
-            for r in 0..3 {
-                for col in 0..self.nv {
-                    self.jct[(col, 3 * c + r)] = self.jac3[(r, col)];
-                }
-            }
+            let nv = self.nv;
+            let block = &mut self.jct.as_mut_slice()[3 * c * nv..(3 * c + 3) * nv];
+            point_jacobian_transposed(model, ws, frame, &d, block);
             let b = contact_point_bias_acceleration(model, ws, frame, &d);
             for r in 0..3 {
                 self.jdot_v[3 * c + r] = b[r];
@@ -189,9 +201,10 @@ impl WholeBody {
         let k3 = 3 * k;
         for a in 0..k3 {
             let ca = &self.jct.as_slice()[a * self.nv..(a + 1) * self.nv];
+            let rows_a = &self.rows[self.stance[a / 3]];
             for b in 0..=a {
                 let cb = &self.jct.as_slice()[b * self.nv..(b + 1) * self.nv];
-                let v: f64 = ca.iter().zip(cb).map(|(x, y)| x * y).sum();
+                let v: f64 = rows_a.iter().map(|&r| ca[r] * cb[r]).sum();
                 self.gram[(a, b)] = v;
                 self.gram[(b, a)] = v;
             }
@@ -215,24 +228,29 @@ impl WholeBody {
         // Least-change projection onto J_c v̇ = −J̇_c v: v̇ = v̇_ref − J_c⁺ (J_c v̇_ref + J̇_c v),
         // J_c⁺ = J_cᵀ (J_c J_cᵀ)⁻¹.
         let c = &mut self.scratch_c;
+        let nv = self.nv;
+        let jct = self.jct.as_slice();
         for col in 0..3 * k {
+            let jc = &jct[col * nv..(col + 1) * nv];
             let mut sum = self.jdot_v[col];
-            for r in 0..self.nv {
-                sum += self.jct[(r, col)] * self.vdot_ref[r];
+            for &r in &self.rows[self.stance[col / 3]] {
+                sum += jc[r] * self.vdot_ref[r];
             }
             c[col] = sum;
         }
         cholesky_solve(&self.gram, 3 * k, c);
-        for r in 0..self.nv {
-            let mut corr = 0.0;
-            for col in 0..3 * k {
-                corr += self.jct[(r, col)] * c[col];
+        self.corr.fill(0.0);
+        for col in 0..3 * k {
+            let jc = &jct[col * nv..(col + 1) * nv];
+            for &r in &self.rows[self.stance[col / 3]] {
+                self.corr[r] += jc[r] * c[col];
             }
-            self.vdot[r] = self.vdot_ref[r] - corr;
+        }
+        for r in 0..nv {
+            self.vdot[r] = self.vdot_ref[r] - self.corr[r];
         }
         // rhs = M v̇ + h, by columns of M (contiguous).
         self.rhs.copy_from(&self.h);
-        let nv = self.nv;
         let m = ws.mass_matrix.as_slice();
         let ldm = ws.mass_matrix.nrows();
         for col in 0..nv {
@@ -300,16 +318,18 @@ impl WholeBody {
             return false;
         }
         let jct = self.jct.as_slice();
+        let rhs = self.rhs.as_slice();
         for a in 0..k3 {
-            let ca = &jct[a * nv + 6..(a + 1) * nv];
+            let ca = &jct[a * nv..(a + 1) * nv];
+            // The joint rows of this foot's chain (the base rows are not in H).
+            let leg = &self.rows[self.stance[a / 3]][6..];
             for b in 0..=a {
-                let cb = &jct[b * nv + 6..(b + 1) * nv];
-                let v = wt * ca.iter().zip(cb).map(|(x, y)| x * y).sum::<f64>();
+                let cb = &jct[b * nv..(b + 1) * nv];
+                let v = wt * leg.iter().map(|&r| ca[r] * cb[r]).sum::<f64>();
                 self.hess[(a, b)] = v;
                 self.hess[(b, a)] = v;
             }
-            let rhs_j = &self.rhs.as_slice()[6..nv];
-            self.force_g[a] = wt * ca.iter().zip(rhs_j).map(|(x, y)| x * y).sum::<f64>();
+            self.force_g[a] = wt * leg.iter().map(|&r| ca[r] * rhs[r]).sum::<f64>();
         }
         if let Some(w) = weight {
             for c in 0..self.k {
@@ -321,16 +341,34 @@ impl WholeBody {
                 }
             }
         }
-        if !cholesky_in_place(&mut self.hess, k3) {
+        // Block diagonal H (no shared joints): each foot's 3 × 3 block on its own, the same
+        // operations as the whole factorisation and solve spend on it.
+        let blocks = self.legs_disjoint;
+        let factored = if blocks {
+            (0..self.k).all(|c| cholesky_in_place_at(&mut self.hess, 3 * c, 3))
+        } else {
+            cholesky_in_place(&mut self.hess, k3)
+        };
+        if !factored {
             return false;
         }
+        let (hess, k) = (&self.hess, self.k);
+        let h_solve = |b: &mut [f64]| {
+            if blocks {
+                for c in 0..k {
+                    cholesky_solve_at(hess, 3 * c, 3, &mut b[3 * c..3 * c + 3]);
+                }
+            } else {
+                cholesky_solve(hess, k3, b);
+            }
+        };
         // H⁻¹ J_b column by column (J_b[a, i] = J_cᵀ[i, a]), then S = J_bᵀ H⁻¹ J_b.
         for i in 0..6 {
             let col = &mut self.force_y;
             for a in 0..k3 {
                 col[a] = jct[a * nv + i];
             }
-            cholesky_solve(&self.hess, k3, &mut col[..k3]);
+            h_solve(&mut col[..k3]);
             for a in 0..k3 {
                 self.hinv_jb[(a, i)] = col[a];
             }
@@ -351,7 +389,7 @@ impl WholeBody {
         // y = H⁻¹ g; ν = S⁻¹ (J_bᵀ y − rhs_b); λ = y − H⁻¹J_b ν.
         let y = &mut self.force_y;
         y[..k3].copy_from_slice(&self.force_g[..k3]);
-        cholesky_solve(&self.hess, k3, &mut y[..k3]);
+        h_solve(&mut y[..k3]);
         let mut nu = [0.0; 6];
         for (i, n) in nu.iter_mut().enumerate() {
             let mut v = -self.rhs[i];
@@ -382,13 +420,15 @@ impl WholeBody {
             }
             self.lambda[a] = v;
         }
-        // τ = rhs_j − J_jᵀ λ.
+        // τ = rhs_j − J_jᵀ λ (each λ entry reaches its own foot's chain only).
         for j in 0..self.nj {
-            let mut v = self.rhs[6 + j];
-            for a in 0..k3 {
-                v -= jct[a * nv + 6 + j] * self.lambda[a];
+            self.tau_id[j] = self.rhs[6 + j];
+        }
+        for a in 0..k3 {
+            let ca = &jct[a * nv..(a + 1) * nv];
+            for &r in &self.rows[self.stance[a / 3]][6..] {
+                self.tau_id[r - 6] -= ca[r] * self.lambda[a];
             }
-            self.tau_id[j] = v;
         }
         true
     }
@@ -475,7 +515,7 @@ impl WholeBody {
         for col in 0..k3 {
             let c = &jct[col * nv..(col + 1) * nv];
             let mut s = 0.0;
-            for r in 0..nv {
+            for &r in &self.rows[self.stance[col / 3]] {
                 let st = if r >= 6 { self.tau_id[r - 6] } else { 0.0 };
                 s += c[r] * (self.rhs[r] - st);
             }
