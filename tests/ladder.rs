@@ -102,7 +102,9 @@ fn ladder_runs_every_rung_and_reports_every_output_against_the_finest() {
         let mine: Vec<&HashMap<String, String>> =
             changes.iter().filter(|c| c["rung"] == rung).collect();
         let count = |output: &str| mine.iter().filter(|c| c["output"] == output).count();
-        // Every cell's outcome, the condition's verdict, the plan's μ_required, the floor.
+        // Every cell's outcome (shown), each (condition, law)'s outcome counts, the
+        // condition's verdict, the plan's μ_required, the floor.
+        assert_eq!(count("cell_outcome"), 2, "{rung}");
         assert_eq!(count("outcome"), 2, "{rung}");
         assert_eq!(count("verdict"), 1, "{rung}");
         assert_eq!(count("mu_required"), 1, "{rung}");
@@ -112,10 +114,25 @@ fn ladder_runs_every_rung_and_reports_every_output_against_the_finest() {
             let id = &cell["cell_id"];
             let outcome = mine
                 .iter()
-                .find(|c| c["output"] == "outcome" && c["place"].starts_with(id.as_str()))
-                .expect("outcome row");
+                .find(|c| c["output"] == "cell_outcome" && c["place"].starts_with(id.as_str()))
+                .expect("cell outcome row");
             assert_eq!(outcome["value"], cell["status"]);
             assert_eq!(outcome["finest"], f["status"]);
+            assert_eq!(
+                outcome["within"], "",
+                "a cell's own outcome is shown, not judged"
+            );
+            // One seed and one condition: each law's group is this one cell, so its counts
+            // read "<status> 1" and its means are the cell's figures.
+            let law = format!("controller={}", cell["controller"]);
+            let group = |output: &str| {
+                mine.iter()
+                    .find(|c| c["output"] == output && c["place"].ends_with(law.as_str()))
+                    .unwrap_or_else(|| panic!("{rung} {law}: no {output} row"))
+            };
+            let counts = group("outcome");
+            assert_eq!(counts["value"], format!("{} 1", cell["status"]), "{rung}");
+            assert_eq!(counts["finest"], format!("{} 1", f["status"]), "{rung}");
             if cell["status"] != "ok" || f["status"] != "ok" {
                 continue;
             }
@@ -125,10 +142,7 @@ fn ladder_runs_every_rung_and_reports_every_output_against_the_finest() {
                 ("base_pos_rms_mm", "base_pos_rms_mm"),
                 ("joint_rms_deg", "joint_rms_deg"),
             ] {
-                let row = mine
-                    .iter()
-                    .find(|c| c["output"] == output && c["place"].starts_with(id.as_str()))
-                    .unwrap_or_else(|| panic!("{rung} {id}: no {output} row"));
+                let row = group(output);
                 let num = |s: &str| s.parse::<f64>().unwrap();
                 let (v, fv) = (num(&cell[column]), num(&f[column]));
                 assert!((num(&row["value"]) - v).abs() < 1e-5, "{rung} {output}");

@@ -1,16 +1,21 @@
 //! The step ladder: the same scenario run at a ladder of plant settings (physics step, solver
 //! substeps, optionally contact stiffness), each rung a complete run folder (tuning included,
 //! since a study at those settings would tune at them), and every output the summary uses
-//! compared against the finest rung: mean slip per stance phase, tracking RMS, each cell's
-//! outcome, each condition's slip verdict (the report's own rule, [`Study::conditions`]),
-//! onset angles when the scenario has an onset study, the plan's μ_required, and the slip floor.
+//! compared against the finest rung: per condition and law, as the summary shows them, the
+//! means over seeds of slip per stance phase and of tracking RMS and the outcome counts; each
+//! condition's slip verdict (the report's own rule, [`Study::conditions`]); onset angles when the
+//! scenario has an onset study; the plan's μ_required; and the slip floor. Each cell's outcome is
+//! listed too (shown, not judged: with the summary reading counts over seeds, a cell that falls
+//! at one rung and its neighbour seed at another leave the summary unchanged).
 //!
 //! The rung chosen is the cheapest (fewest solver substeps per simulated second) whose verdicts
 //! and outcomes equal the finest rung's and whose figures stay within [`TOLERANCES`]. The
 //! finest rung is the one with the shortest substep (dt / substeps; then the shorter dt; then
 //! the stiffer contact).
 
-use crate::report::{Axis, MANIFEST_FILE, Metric, Run, Status, Study, Verdict, read_run};
+use crate::report::{
+    Axis, Cell, MANIFEST_FILE, Measure, Metric, Run, Status, Study, Verdict, read_run, seed_means,
+};
 use crate::runner::{RunError, RunOptions, run};
 use crate::scenario::Scenario;
 use std::collections::BTreeMap;
@@ -73,18 +78,22 @@ pub const MAX_RUNGS: usize = 12;
 /// How far a rung's figures may sit from the finest rung's and still count as converged.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Tolerances {
-    /// Mean slip per stance phase: within max(this share of the finest value, the slip floor).
+    /// Mean slip per stance phase of a (condition, law): within max(this share of the finest
+    /// value, the finest rung's slip floor, the standard error over seeds of the finest mean).
     pub slip_share: f64,
     /// Onset angle, degrees.
     pub onset_deg: f64,
-    /// Tracking RMS (base position, joint angles): within this share of the finest value.
+    /// Tracking RMS (base position, joint angles) of a (condition, law): within max(this share
+    /// of the finest value, the standard error over seeds of the finest mean).
     pub tracking_share: f64,
     /// The plan's μ_required (the plan does not depend on the plant: any change is a fault).
     pub mu_required: f64,
 }
 
-/// The tolerances the issue states: slip within max(5 %, the slip floor), onset within 0.5°,
-/// tracking within 5 %.
+/// The tolerances: slip within max(5 %, the slip floor), onset within 0.5°, tracking within 5 %,
+/// each widened to the standard error over seeds of the finest rung's mean where that is larger
+/// (a change smaller than the seeds' own scatter of the mean cannot be told from it, and the
+/// summary's intervals, t(0.975, n − 1) standard errors wide, already cover it).
 pub const TOLERANCES: Tolerances = Tolerances {
     slip_share: 0.05,
     onset_deg: 0.5,
@@ -222,9 +231,12 @@ pub struct Change {
 #[derive(Clone, Debug, PartialEq)]
 pub struct RungResult {
     pub rung: Rung,
+    /// Wall time of this invocation's work on the rung (≈ 0 for a resumed, finished rung).
     pub wall_s: f64,
+    /// The cells' own times summed (`timing.csv`, one thread each; tuning not included).
+    pub cell_s: f64,
     pub cells: usize,
-    /// Largest |change| of mean slip, mm, over cells that count in both rungs.
+    /// Largest |change| of a (condition, law) mean slip, mm.
     pub slip_worst_mm: f64,
     /// Largest |change| of tracking RMS as a share of the finest value.
     pub tracking_worst_share: f64,
@@ -232,14 +244,17 @@ pub struct RungResult {
     pub onset_worst_deg: f64,
     /// Compared figures outside their tolerance.
     pub outside: usize,
+    /// (condition, law) groups whose outcome counts changed (judged).
     pub outcome_changes: usize,
+    /// Cells whose own outcome changed (shown).
+    pub cell_outcome_changes: usize,
     pub verdict_changes: usize,
     pub converged: bool,
     pub chosen: bool,
 }
 
 /// The columns of [`RUNGS_FILE`].
-pub const RUNGS_COLUMNS: [&str; 15] = [
+pub const RUNGS_COLUMNS: [&str; 17] = [
     "rung",
     "dt_s",
     "substeps",
@@ -248,11 +263,13 @@ pub const RUNGS_COLUMNS: [&str; 15] = [
     "finest",
     "cells",
     "wall_s",
+    "cell_seconds",
     "slip_worst_change_mm",
     "tracking_worst_change_share",
     "onset_worst_change_deg",
     "figures_outside",
     "outcome_changes",
+    "cell_outcome_changes",
     "verdict_changes",
     "chosen",
 ];
@@ -406,6 +423,7 @@ pub fn compare(
     let f_cells: BTreeMap<&str, &crate::report::Cell> =
         f_run.cells.iter().map(|c| (c.id.as_str(), c)).collect();
     let f_verdicts = condition_verdicts(&f_study);
+    let f_groups = groups(&f_study);
     let f_onset = onset_values(&f_study);
     let mut changes = Vec::new();
     let mut results = Vec::new();
@@ -415,12 +433,18 @@ pub fn compare(
         let mut res = RungResult {
             rung: *r,
             wall_s: walls.get(i).copied().unwrap_or(f64::NAN),
+            cell_s: run
+                .timing
+                .as_ref()
+                .map(|t| t.values().map(|x| x.wall_s).sum())
+                .unwrap_or(f64::NAN),
             cells: run.cells.len(),
             slip_worst_mm: 0.0,
             tracking_worst_share: 0.0,
             onset_worst_deg: f64::NAN,
             outside: 0,
             outcome_changes: 0,
+            cell_outcome_changes: 0,
             verdict_changes: 0,
             converged: false,
             chosen: false,
@@ -443,7 +467,7 @@ pub fn compare(
                 within,
             })
         };
-        // Per cell: outcome, then the figures where both runs count.
+        // Per cell: the outcome, shown.
         for c in &run.cells {
             let Some(f) = f_cells.get(c.id.as_str()) else {
                 continue;
@@ -454,52 +478,93 @@ pub fn compare(
             );
             let same = c.status == f.status;
             if !same {
+                res.cell_outcome_changes += 1;
+            }
+            push(
+                "cell_outcome",
+                place,
+                c.status.name().into(),
+                f.status.name().into(),
+                if same { "same" } else { "changed" }.into(),
+                String::new(),
+                "",
+            );
+        }
+        // Per (condition, law), as the summary shows them: outcome counts, then the means
+        // over seeds.
+        let groups = groups(&study);
+        for (place, fg) in &f_groups {
+            let Some(g) = groups.get(place) else {
+                res.outcome_changes += 1;
+                push(
+                    "outcome",
+                    place.clone(),
+                    "missing".into(),
+                    outcome_text(&fg.outcomes),
+                    "changed".into(),
+                    "equal".into(),
+                    "no",
+                );
+                continue;
+            };
+            let same = g.outcomes == fg.outcomes;
+            if !same {
                 res.outcome_changes += 1;
             }
             push(
                 "outcome",
                 place.clone(),
-                c.status.name().into(),
-                f.status.name().into(),
+                outcome_text(&g.outcomes),
+                outcome_text(&fg.outcomes),
                 if same { "same" } else { "changed" }.into(),
                 "equal".into(),
                 if same { "yes" } else { "no" },
             );
-            if !(c.status == Status::Ok && f.status == Status::Ok) {
-                continue;
-            }
-            let figures: [(&'static str, Metric, f64, bool); 3] = [
-                ("slip_mean_mm", Metric::SlipMean, tol.slip_share, true),
-                (
-                    "base_pos_rms_mm",
-                    Metric::BasePosRms,
-                    tol.tracking_share,
-                    false,
-                ),
-                ("joint_rms_deg", Metric::JointRms, tol.tracking_share, false),
-            ];
-            for (name, m, share, is_slip) in figures {
-                let (v, fv) = (c.metric(m), f.metric(m));
-                let d = v - fv;
-                let allowed = if is_slip {
-                    (share * fv.abs()).max(if floor.is_finite() { floor } else { 0.0 })
-                } else {
-                    share * fv.abs()
+            for (k, (name, _, is_slip)) in FIGURES.iter().enumerate() {
+                let (v, fv) = (g.figures[k], fg.figures[k]);
+                let (value, fine_mean, se) = match (v, fv) {
+                    (None, None) => continue,
+                    (Some(v), Some(f)) => (v.mean, f.mean, f.se),
+                    _ => {
+                        // Defined at one rung only: its outcome counts changed too.
+                        res.outside += 1;
+                        push(
+                            name,
+                            place.clone(),
+                            v.map(|x| fmt(x.mean)).unwrap_or_else(|| "none".into()),
+                            fv.map(|x| fmt(x.mean)).unwrap_or_else(|| "none".into()),
+                            "changed".into(),
+                            String::new(),
+                            "no",
+                        );
+                        continue;
+                    }
                 };
-                let ok = d.abs() <= allowed || (v.is_nan() && fv.is_nan());
+                let d = value - fine_mean;
+                let share = if *is_slip {
+                    tol.slip_share
+                } else {
+                    tol.tracking_share
+                };
+                let mut allowed = (share * fine_mean.abs()).max(se);
+                if *is_slip && floor.is_finite() {
+                    allowed = allowed.max(floor);
+                }
+                let ok = d.abs() <= allowed;
                 if !ok {
                     res.outside += 1;
                 }
-                if is_slip {
+                if *is_slip {
                     res.slip_worst_mm = res.slip_worst_mm.max(d.abs());
-                } else if fv.abs() > 0.0 {
-                    res.tracking_worst_share = res.tracking_worst_share.max(d.abs() / fv.abs());
+                } else if fine_mean.abs() > 0.0 {
+                    res.tracking_worst_share =
+                        res.tracking_worst_share.max(d.abs() / fine_mean.abs());
                 }
                 push(
                     name,
                     place.clone(),
-                    fmt(v),
-                    fmt(fv),
+                    fmt(value),
+                    fmt(fine_mean),
                     fmt(d),
                     fmt(allowed),
                     if ok { "yes" } else { "no" },
@@ -606,6 +671,104 @@ pub fn compare(
     }
 }
 
+/// The figures compared per (condition, law): output name, metric, whether it is a slip.
+const FIGURES: [(&str, Metric, bool); 3] = [
+    ("slip_mean_mm", Metric::SlipMean, true),
+    ("base_pos_rms_mm", Metric::BasePosRms, false),
+    ("joint_rms_deg", Metric::JointRms, false),
+];
+
+/// A mean over seeds (of the per-seed means, as the summary takes it) and its standard error
+/// s / √n over the n seeds (0 with one seed).
+#[derive(Clone, Copy, Debug)]
+struct SeedMean {
+    mean: f64,
+    se: f64,
+}
+
+/// One (condition, law) of a run as the summary reads it.
+struct Group {
+    outcomes: [usize; Status::ALL.len()],
+    figures: [Option<SeedMean>; 3],
+}
+
+fn seed_mean(cells: &[&Cell], m: Metric) -> Option<SeedMean> {
+    let per_seed: Vec<f64> = seed_means(cells.iter().copied(), Measure::Plain(m))
+        .into_values()
+        .collect();
+    let n = per_seed.len();
+    if n == 0 {
+        return None;
+    }
+    let mean = per_seed.iter().sum::<f64>() / n as f64;
+    let se = if n > 1 {
+        let var = per_seed.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1) as f64;
+        (var / n as f64).sqrt()
+    } else {
+        0.0
+    };
+    Some(SeedMean { mean, se })
+}
+
+/// "ok 3" / "ok 2, fell 1": a group's outcome counts.
+fn outcome_text(counts: &[usize; Status::ALL.len()]) -> String {
+    Status::ALL
+        .iter()
+        .zip(counts)
+        .filter(|(_, n)| **n > 0)
+        .map(|(s, n)| format!("{} {n}", s.name()))
+        .collect::<Vec<_>>()
+        .join("; ")
+}
+
+/// A condition's place text: every condition axis the run varies, with its value (the axes
+/// a run holds at one value name no condition apart; rungs of one ladder vary the same ones).
+fn condition_place(study: &Study, idx: &[usize]) -> String {
+    let text = Axis::ALL
+        .iter()
+        .filter(|a| study.axes.len(**a) > 1)
+        .map(|a| {
+            let v = study.axes.value_raw(*a, idx[a.0]);
+            format!("{}={v}", a.column())
+        })
+        .collect::<Vec<_>>()
+        .join(" ");
+    if text.is_empty() {
+        "the one condition".into()
+    } else {
+        text
+    }
+}
+
+/// Every (condition, law) of a run, keyed by place and law.
+fn groups(study: &Study) -> BTreeMap<String, Group> {
+    let mut by: BTreeMap<(Vec<usize>, usize), Vec<&Cell>> = BTreeMap::new();
+    for (i, c) in study.run.cells.iter().enumerate() {
+        let (idx, ctrl) = study.place_of(i);
+        by.entry((idx.to_vec(), ctrl)).or_default().push(c);
+    }
+    let names = study.controllers();
+    by.into_iter()
+        .map(|((idx, ctrl), cells)| {
+            let mut outcomes = [0usize; Status::ALL.len()];
+            for c in &cells {
+                if let Some(k) = Status::ALL.iter().position(|s| *s == c.status) {
+                    outcomes[k] += 1;
+                }
+            }
+            let figures = FIGURES.map(|(_, m, _)| seed_mean(&cells, m));
+            (
+                format!(
+                    "{} controller={}",
+                    condition_place(study, &idx),
+                    names[ctrl]
+                ),
+                Group { outcomes, figures },
+            )
+        })
+        .collect()
+}
+
 /// Each condition's verdict text, keyed by its axis values.
 fn condition_verdicts(study: &Study) -> BTreeMap<String, String> {
     let names = study.controllers();
@@ -613,15 +776,10 @@ fn condition_verdicts(study: &Study) -> BTreeMap<String, String> {
         .conditions()
         .iter()
         .map(|cond| {
-            let place = Axis::ALL
-                .iter()
-                .map(|a| {
-                    let v = study.axes.value_raw(*a, cond.idx[a.0]);
-                    format!("{}={v}", a.column())
-                })
-                .collect::<Vec<_>>()
-                .join(" ");
-            (place, verdict_text(&cond.verdict, names))
+            (
+                condition_place(study, &cond.idx),
+                verdict_text(&cond.verdict, names),
+            )
         })
         .collect()
 }
@@ -670,11 +828,13 @@ pub fn rungs_csv(sum: &LadderSummary) -> String {
             if i == sum.finest { "yes" } else { "" }.into(),
             r.cells.to_string(),
             format!("{:.1}", r.wall_s),
+            format!("{:.1}", r.cell_s),
             fmt(r.slip_worst_mm),
             fmt(r.tracking_worst_share),
             fmt(r.onset_worst_deg),
             r.outside.to_string(),
             r.outcome_changes.to_string(),
+            r.cell_outcome_changes.to_string(),
             r.verdict_changes.to_string(),
             if r.chosen { "yes" } else { "" }.into(),
         ];
@@ -719,14 +879,14 @@ pub fn markdown(sum: &LadderSummary) -> String {
     let mut s = String::from("# Step ladder\n\n");
     let _ = writeln!(
         s,
-        "Every rung is the same scenario at other plant settings, tuned and run in full; each output is compared with the finest rung (`{}`). Tolerances: mean slip per stance phase within max({:.0} % of the finest value, the finest rung's slip floor); tracking RMS (base position, joint angles) within {:.0} %; onset angles within {}°; μ_required unchanged; every cell's outcome and every condition's slip verdict (the report's rule: floor and paired test) equal.\n",
+        "Every rung is the same scenario at other plant settings, tuned and run in full; each output the summary uses is compared with the finest rung (`{}`), per condition and law as the summary shows it. Tolerances: the mean over seeds of slip per stance phase within max({:.0} % of the finest value, the finest rung's slip floor, the standard error over seeds of the finest mean); the means of tracking RMS (base position, joint angles) within max({:.0} %, that standard error); onset angles within {}°; μ_required unchanged; every condition's outcome counts per law and its slip verdict (the report's rule: floor and paired test) equal. Cells whose own outcome changed are counted and listed in `rung-changes.csv` (`cell_outcome`) but not judged: the summary reads outcomes as counts over seeds.\n",
         sum.rungs[sum.finest].rung.label(),
         t.slip_share * 100.0,
         t.tracking_share * 100.0,
         t.onset_deg
     );
-    s += "| rung | substeps per s | cells | wall (s, shared machine) | worst slip change (mm) | worst tracking change | worst onset change (°) | figures outside | outcome changes | verdict changes | |\n";
-    s += "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|\n";
+    s += "| rung | substeps per s | cells | cell seconds | worst slip change (mm) | worst tracking change | worst onset change (°) | figures outside | outcome-count changes | cells with another outcome | verdict changes | |\n";
+    s += "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|\n";
     for (i, r) in sum.rungs.iter().enumerate() {
         let mark = if r.chosen {
             "**chosen**"
@@ -739,11 +899,11 @@ pub fn markdown(sum: &LadderSummary) -> String {
         };
         let _ = writeln!(
             s,
-            "| {} | {} | {} | {:.1} | {:.3} | {:.1} % | {} | {} | {} | {} | {} |",
+            "| {} | {} | {} | {:.0} | {:.3} | {:.1} % | {} | {} | {} | {} | {} | {} |",
             r.rung.label(),
             r.rung.cost(),
             r.cells,
-            r.wall_s,
+            r.cell_s,
             r.slip_worst_mm,
             r.tracking_worst_share * 100.0,
             if r.onset_worst_deg.is_nan() {
@@ -753,6 +913,7 @@ pub fn markdown(sum: &LadderSummary) -> String {
             },
             r.outside,
             r.outcome_changes,
+            r.cell_outcome_changes,
             r.verdict_changes,
             mark
         );
@@ -815,4 +976,40 @@ pub fn chosen_in_table(text: &str) -> Result<Rung, String> {
         }
     }
     found.ok_or_else(|| format!("{RUNGS_FILE}: no chosen rung"))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn cell(seed: u64, status: Status, slip: f64) -> Cell {
+        let mut c = Cell::for_tests();
+        c.seed = seed;
+        c.status = status;
+        c.set_metric(Metric::SlipMean, slip);
+        c
+    }
+
+    /// The mean over seeds and its standard error s / √n, against a hand computation: per-seed
+    /// values 1, 2, 3 (mean 2, sample standard deviation 1, standard error 1 / √3); cells that
+    /// do not count (a fall) are left out as the summary leaves them out.
+    #[test]
+    fn seed_mean_and_standard_error_match_the_hand_computation() {
+        let cells = [
+            cell(0, Status::Ok, 1.0),
+            cell(1, Status::Ok, 2.0),
+            cell(2, Status::Ok, 3.0),
+            cell(3, Status::Fell, 100.0),
+        ];
+        let refs: Vec<&Cell> = cells.iter().collect();
+        let m = seed_mean(&refs, Metric::SlipMean).unwrap();
+        assert!((m.mean - 2.0).abs() < 1e-12);
+        assert!((m.se - 1.0 / 3f64.sqrt()).abs() < 1e-12);
+        let one = seed_mean(&refs[..1], Metric::SlipMean).unwrap();
+        assert_eq!((one.mean, one.se), (1.0, 0.0));
+        let mut counts = [0usize; Status::ALL.len()];
+        counts[Status::ALL.iter().position(|s| *s == Status::Ok).unwrap()] = 2;
+        counts[Status::ALL.iter().position(|s| *s == Status::Fell).unwrap()] = 1;
+        assert_eq!(outcome_text(&counts), "ok 2; fell 1");
+    }
 }

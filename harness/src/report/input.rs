@@ -146,6 +146,34 @@ impl Cell {
     pub fn metric(&self, m: Metric) -> f64 {
         self.metrics[m as usize]
     }
+
+    /// A cell with every metric NaN, on no axis, for unit tests elsewhere in the crate.
+    #[cfg(test)]
+    pub(crate) fn for_tests() -> Cell {
+        Cell {
+            id: String::new(),
+            index: 0,
+            slope_deg: 0.0,
+            mu: 0.0,
+            rate_hz: 0.0,
+            actuator: String::new(),
+            controller: String::new(),
+            mass_scale: 1.0,
+            com_shift_mm: 0.0,
+            sensor_noise: 0.0,
+            axis_values: Vec::new(),
+            seed: 0,
+            status: Status::Ok,
+            message: String::new(),
+            beyond_plan_limit: false,
+            metrics: [f64::NAN; Metric::ALL.len()],
+        }
+    }
+
+    #[cfg(test)]
+    pub(crate) fn set_metric(&mut self, m: Metric, v: f64) {
+        self.metrics[m as usize] = v;
+    }
 }
 
 /// The fields of `manifest.json` the report relies on.

@@ -28,9 +28,9 @@ pub use input::{
 };
 pub use plots::Image;
 pub use stats::{Stat, mean_ci95, over_seeds, t_975};
-pub use tables::{Axis, Study, Verdict, judge};
+pub use tables::{Axis, Measure, Study, Verdict, judge, seed_means};
 
-use tables::{ComputeRow, Condition, Entry, LawRecord, Measure, OnsetTable, Pivot};
+use tables::{ComputeRow, Condition, Entry, LawRecord, OnsetTable, Pivot};
 
 /// Name of the people's summary inside the run folder.
 pub const SUMMARY_MD: &str = "summary.md";
