@@ -8,7 +8,7 @@
 //! * the crawl's centre of mass (full model) inside the stance polygon with the margin;
 //! * planned progress; sample() allocates nothing.
 
-use gripsweep::planner::{Gait, IkMethod, Plan, PlanSample};
+use gripsweep::planner::{CACHE_CHUNKS, CHUNK_KNOTS, Gait, IkMethod, Plan, PlanSample};
 use gripsweep::plant::terrain::{Slope, Terrain};
 use gripsweep::robot::LoadedRobot;
 use gripsweep_controllers::algorithms::{
@@ -518,6 +518,62 @@ fn velocities_and_accelerations_match_finite_differences() {
         assert!(ev < 1e-6, "{label}: velocity vs FD {ev}");
         assert!(ea < 1e-5, "{label}: acceleration vs FD {ea}");
         assert!(ef < 1e-6, "{label}: feet vs FD {ef}");
+    }
+}
+
+/// Plans longer than the knot cache holds (two robots, two gaits): the build keeps only the
+/// last chunks; a sample in a dropped chunk makes it again from its seed, and that chunk equals
+/// the build's bit for bit (a clone of the plan starts with no chunks, so every chunk it reads
+/// is made again; the original still holds the build's own last chunks). The cache stays
+/// within its bound throughout.
+#[test]
+fn knot_chunks_made_again_equal_the_build_s() {
+    for (robot, gait, label) in [
+        (brindle(), BRINDLE_PACED, "brindle paced crawl"),
+        (skitter(), SKITTER_TROT, "skitter trot"),
+    ] {
+        let built = plan(robot, 10.0, &gait, 24.0);
+        let knots = built.knot_times();
+        assert!(
+            knots.len() > CACHE_CHUNKS * CHUNK_KNOTS,
+            "{label}: too short to test"
+        );
+        assert!(built.knot_chunks_kept() <= CACHE_CHUNKS, "{label}");
+        let fresh = built.clone();
+        assert_eq!(fresh.knot_chunks_kept(), 0, "{label}: a clone starts empty");
+        // Backwards over the last chunks first (the build's own, in `built`), then forwards
+        // over the whole plan (dropping and making chunks again in both).
+        let late: Vec<f64> = (0..knots.len())
+            .rev()
+            .step_by(97)
+            .take(120)
+            .flat_map(|k| {
+                let t = knots[k];
+                let next = knots.get(k + 1).copied().unwrap_or(t);
+                [t, 0.5 * (t + next)]
+            })
+            .collect();
+        let all: Vec<f64> = (0..knots.len())
+            .step_by(53)
+            .map(|k| knots[k] + 0.37e-3)
+            .collect();
+        let (mut a, mut b) = (built.new_sample(), fresh.new_sample());
+        for &t in late.iter().chain(&all) {
+            built.sample(t, &mut a);
+            fresh.sample(t, &mut b);
+            for (name, x, y) in [("q", &a.q, &b.q), ("v", &a.v, &b.v), ("a", &a.a, &b.a)] {
+                let same = x
+                    .iter()
+                    .zip(y.iter())
+                    .all(|(p, q)| p.to_bits() == q.to_bits());
+                assert!(
+                    same,
+                    "{label} t = {t}: {name} differs between the build's chunk and one made again"
+                );
+            }
+            assert!(built.knot_chunks_kept() <= CACHE_CHUNKS, "{label}");
+            assert!(fresh.knot_chunks_kept() <= CACHE_CHUNKS, "{label}");
+        }
     }
 }
 

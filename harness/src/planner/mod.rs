@@ -28,7 +28,14 @@
 //!   the joint velocity and acceleration it returns are the derivatives of the joint position it
 //!   returns. Between breakpoints the motion is analytic, so the interpolation error is of order
 //!   h⁶ q⁽⁶⁾ / 46080 (far below 1e-12 rad for these gaits; the tests measure it against
-//!   [`Plan::evaluate`], the exact solution at any time). `sample` allocates nothing.
+//!   [`Plan::evaluate`], the exact solution at any time).
+//! * Memory: the knots are not all kept. The build evaluates every knot once (to check them),
+//!   keeping only the numeric legs' seed at the start of each chunk of [`CHUNK_KNOTS`] knots;
+//!   a chunk is evaluated again from its seed when a sample needs it, the same evaluations in
+//!   the same order, so it is bit for bit the chunk the build saw. A plan keeps at most
+//!   [`CACHE_CHUNKS`] chunks (shared by every thread sampling it, least recently used dropped
+//!   first), so its memory does not grow with the duration beyond that (about 16 s of knots).
+//!   `sample` allocates only when it moves into a chunk no longer kept.
 //!
 //! # Centre of mass in the static crawl
 //!
@@ -61,6 +68,8 @@ use gripsweep_controllers::spatial::{Mat3, Pose, Vec3};
 use nalgebra::{DMatrix, DVector};
 use pieces::{Piece, piece_at, quintic_hermite};
 use std::fmt;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::{Arc, Mutex};
 use support::P2;
 
 /// Default peak base acceleration of the crawl's paced shifts, m/s²: 2 % of standard gravity
@@ -71,6 +80,10 @@ pub const DEFAULT_SHIFT_ACCEL: f64 = 0.02 * 9.806_65;
 pub const KNOT_SPACING: f64 = 1e-3;
 /// Longest plan, s.
 pub const MAX_DURATION: f64 = 600.0;
+/// Knots per chunk of a plan's knot cache (a chunk also holds the next chunk's first knot).
+pub const CHUNK_KNOTS: usize = 256;
+/// Chunks a plan keeps at most (≈ 16 s of knots at [`KNOT_SPACING`]).
+pub const CACHE_CHUNKS: usize = 64;
 /// Shortest swing or base move, s.
 const MIN_PHASE: f64 = 0.01;
 /// A leg whose Jacobian has |det J| / Π |columns| below this is treated as singular.
@@ -219,6 +232,133 @@ pub struct PlanSample {
     pub base_pos: Vec3,
     /// Which stance phase (changes when the stance set changes).
     pub phase_index: usize,
+    /// The knot chunk the last sample read (not part of the sample's value).
+    knots: ChunkHandle,
+}
+
+/// The joint knots of consecutive knot indices `first..first + len`: n_joints values of q,
+/// q̇, q̈ per knot.
+#[derive(Debug)]
+struct KnotChunk {
+    first: usize,
+    q: Vec<f64>,
+    v: Vec<f64>,
+    a: Vec<f64>,
+}
+
+/// A sample's reference to the chunk it read last: (knot set, chunk index, chunk).
+#[derive(Clone, Default)]
+struct ChunkHandle(Option<(u64, usize, Arc<KnotChunk>)>);
+
+impl PartialEq for ChunkHandle {
+    fn eq(&self, _: &Self) -> bool {
+        true
+    }
+}
+
+impl fmt::Debug for ChunkHandle {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match &self.0 {
+            Some((_, c, _)) => write!(f, "chunk {c}"),
+            None => f.write_str("no chunk"),
+        }
+    }
+}
+
+/// Where the knots are: per breakpoint interval (start, end, knots in it, first knot index),
+/// the knot count (the last knot at the plan's end), the numeric legs' seed (n_joints angles)
+/// at the start of each chunk, and a process-unique id of this set of knots.
+#[derive(Clone, Debug, Default)]
+struct KnotGrid {
+    intervals: Vec<(f64, f64, usize, usize)>,
+    count: usize,
+    end: f64,
+    seeds: Vec<f64>,
+    id: u64,
+}
+
+static KNOT_SET_IDS: AtomicU64 = AtomicU64::new(1);
+
+impl KnotGrid {
+    /// Time of knot `k` (the build's own formula).
+    fn time(&self, k: usize) -> f64 {
+        if k + 1 >= self.count {
+            return self.end;
+        }
+        let j = self.intervals.partition_point(|iv| iv.3 <= k) - 1;
+        let (b0, b1, m, first) = self.intervals[j];
+        b0 + (b1 - b0) * (k - first) as f64 / m as f64
+    }
+
+    /// The number of knots whose time satisfies `pred`, `pred` true on a prefix.
+    fn partition_point(&self, pred: impl Fn(f64) -> bool) -> usize {
+        let (mut lo, mut hi) = (0, self.count);
+        while lo < hi {
+            let mid = lo + (hi - lo) / 2;
+            if pred(self.time(mid)) {
+                lo = mid + 1;
+            } else {
+                hi = mid;
+            }
+        }
+        lo
+    }
+}
+
+/// One kept chunk: (knot set id, chunk index, chunk, last use).
+type KeptChunk = (u64, usize, Arc<KnotChunk>, u64);
+
+/// The chunks a plan keeps, and the use clock.
+#[derive(Default)]
+struct KnotCache(Mutex<(Vec<KeptChunk>, u64)>);
+
+impl KnotCache {
+    fn get(&self, id: u64, c: usize) -> Option<Arc<KnotChunk>> {
+        let mut g = self.0.lock().unwrap_or_else(|e| e.into_inner());
+        g.1 += 1;
+        let now = g.1;
+        g.0.iter_mut().find(|e| e.0 == id && e.1 == c).map(|e| {
+            e.3 = now;
+            e.2.clone()
+        })
+    }
+
+    fn put(&self, id: u64, c: usize, chunk: Arc<KnotChunk>) -> Arc<KnotChunk> {
+        let mut g = self.0.lock().unwrap_or_else(|e| e.into_inner());
+        g.1 += 1;
+        let now = g.1;
+        g.0.retain(|e| e.0 == id);
+        if let Some(e) = g.0.iter_mut().find(|e| e.1 == c) {
+            // Another thread made it meanwhile: the same values; keep the first.
+            e.3 = now;
+            return e.2.clone();
+        }
+        if g.0.len() >= CACHE_CHUNKS
+            && let Some(old) = (0..g.0.len()).min_by_key(|&i| g.0[i].3)
+        {
+            g.0.swap_remove(old);
+        }
+        g.0.push((id, c, chunk.clone(), now));
+        chunk
+    }
+
+    fn clear(&self) {
+        self.0.lock().unwrap_or_else(|e| e.into_inner()).0.clear();
+    }
+}
+
+impl Clone for KnotCache {
+    /// A clone starts with no chunks (it makes them again from the same seeds).
+    fn clone(&self) -> Self {
+        KnotCache::default()
+    }
+}
+
+impl fmt::Debug for KnotCache {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let n = self.0.lock().map(|g| g.0.len()).unwrap_or(0);
+        write!(f, "KnotCache({n} chunks)")
+    }
 }
 
 /// Buffers for [`Plan::evaluate`] (the exact solution at any time).
@@ -246,11 +386,9 @@ pub struct Plan {
     phase_starts: Vec<f64>,
     phase_stance: Vec<Vec<bool>>,
     breakpoints: Vec<f64>,
-    /// Joint knots: times, and n_joints values of q, q̇, q̈ per knot.
-    knot_t: Vec<f64>,
-    knot_q: Vec<f64>,
-    knot_v: Vec<f64>,
-    knot_a: Vec<f64>,
+    /// Where the joint knots are, and the chunks of them kept (see the module notes).
+    knots: KnotGrid,
+    knot_cache: KnotCache,
     /// Nominal joint angles (joints on no leg hold them).
     joint_nominal: Vec<f64>,
     /// Joints that belong to no leg.
@@ -289,8 +427,7 @@ impl Plan {
         }
         if duration > MAX_DURATION {
             return Err(PlanError(format!(
-                "duration = {duration} s: allowed: at most {MAX_DURATION} s (the joint knots of a plan, {:.0} per second, are kept in memory)",
-                1.0 / KNOT_SPACING
+                "duration = {duration} s: allowed: at most {MAX_DURATION} s"
             )));
         }
         gait.validate()?;
@@ -426,10 +563,8 @@ impl Plan {
             phase_starts: Vec::new(),
             phase_stance: Vec::new(),
             breakpoints: Vec::new(),
-            knot_t: Vec::new(),
-            knot_q: Vec::new(),
-            knot_v: Vec::new(),
-            knot_a: Vec::new(),
+            knots: KnotGrid::default(),
+            knot_cache: KnotCache::default(),
             joint_nominal,
             free_joints,
             cycles: 0,
@@ -576,8 +711,12 @@ impl Plan {
                 worst = worst.min(swing.support.margin_of(&com) - margin);
             };
             if at_knots {
-                let first = self.knot_t.partition_point(|&t| t < swing.t0);
-                for &t in self.knot_t[first..].iter().take_while(|&&t| t <= swing.t1) {
+                let first = self.knots.partition_point(|t| t < swing.t0);
+                for k in first..self.knots.count {
+                    let t = self.knots.time(k);
+                    if t > swing.t1 {
+                        break;
+                    }
                     self.sample(t, out);
                     forward_kinematics(&self.model, &mut scratch.ws, &out.q);
                     account(self.project(&center_of_mass(&self.model, &scratch.ws)));
@@ -619,13 +758,19 @@ impl Plan {
             *last = self.duration;
         }
         self.breakpoints = b;
-        self.knot_t.clear();
+        self.knots = KnotGrid::default();
+        self.knot_cache.clear();
     }
 
     /// Exact solutions at knots: every breakpoint, and between breakpoints no more than
     /// [`KNOT_SPACING`] apart wherever something moves.
     fn make_knots(&mut self, scratch: &mut PlanScratch) -> Result<(), PlanError> {
-        let mut times = Vec::new();
+        let mut grid = KnotGrid {
+            end: self.duration,
+            id: KNOT_SET_IDS.fetch_add(1, Ordering::Relaxed),
+            ..KnotGrid::default()
+        };
+        let mut first = 0;
         for w in self.breakpoints.windows(2) {
             let (b0, b1) = (w[0], w[1]);
             let mid = 0.5 * (b0 + b1);
@@ -636,36 +781,103 @@ impl Plan {
             } else {
                 ((b1 - b0) / KNOT_SPACING).ceil().max(1.0) as usize
             };
-            times.extend((0..m).map(|i| b0 + (b1 - b0) * i as f64 / m as f64));
+            grid.intervals.push((b0, b1, m, first));
+            first += m;
         }
-        times.push(self.duration);
+        grid.count = first + 1;
         let nj = self.model.n_joints();
-        let mut q = Vec::with_capacity(times.len() * nj);
-        let mut v = Vec::with_capacity(times.len() * nj);
-        let mut a = Vec::with_capacity(times.len() * nj);
+        self.knot_cache.clear();
+        // Every knot once, in order (the previous knot's angles seed the numeric legs, keeping
+        // one branch throughout); each chunk is kept as it completes.
         let mut out = self.new_sample();
         self.seed_nominal(&mut out);
-        for (k, &t) in times.iter().enumerate() {
-            // The previous knot's angles seed the numeric legs, keeping one branch throughout.
+        let (mut prev_q, mut prev_v) = (vec![0.0; nj], vec![0.0; nj]);
+        let mut chunk = KnotChunk {
+            first: 0,
+            q: Vec::with_capacity((CHUNK_KNOTS + 1) * nj),
+            v: Vec::with_capacity((CHUNK_KNOTS + 1) * nj),
+            a: Vec::with_capacity((CHUNK_KNOTS + 1) * nj),
+        };
+        for k in 0..grid.count {
+            if k % CHUNK_KNOTS == 0 {
+                grid.seeds.extend(out.q.iter().skip(7));
+            }
+            let t = grid.time(k);
             self.evaluate_exact(t, scratch, &mut out)?;
             if k > 0 {
-                self.check_same_branch(
-                    times[k - 1],
-                    t,
-                    &q[(k - 1) * nj..],
-                    &v[(k - 1) * nj..],
-                    &out,
-                )?;
+                self.check_same_branch(grid.time(k - 1), t, &prev_q, &prev_v, &out)?;
             }
-            q.extend(out.q.iter().skip(7));
-            v.extend(out.v.iter().skip(6));
-            a.extend(out.a.iter().skip(6));
+            for (j, p) in prev_q.iter_mut().enumerate() {
+                *p = out.q[7 + j];
+                prev_v[j] = out.v[6 + j];
+            }
+            chunk.q.extend(out.q.iter().skip(7));
+            chunk.v.extend(out.v.iter().skip(6));
+            chunk.a.extend(out.a.iter().skip(6));
+            let c = chunk.first / CHUNK_KNOTS;
+            if k == (c + 1) * CHUNK_KNOTS || k + 1 == grid.count {
+                let next = KnotChunk {
+                    first: k,
+                    q: out.q.iter().skip(7).copied().collect(),
+                    v: out.v.iter().skip(6).copied().collect(),
+                    a: out.a.iter().skip(6).copied().collect(),
+                };
+                let done = std::mem::replace(&mut chunk, next);
+                self.knot_cache.put(grid.id, c, Arc::new(done));
+            }
         }
-        self.knot_t = times;
-        self.knot_q = q;
-        self.knot_v = v;
-        self.knot_a = a;
+        self.knots = grid;
         Ok(())
+    }
+
+    /// Knots `c · CHUNK_KNOTS ..= (c + 1) · CHUNK_KNOTS` (or to the last), evaluated again
+    /// from the chunk's seed: the same evaluations, in the same order, as the build's.
+    fn make_chunk(&self, c: usize) -> KnotChunk {
+        let nj = self.model.n_joints();
+        let g = &self.knots;
+        let first = c * CHUNK_KNOTS;
+        let last = ((c + 1) * CHUNK_KNOTS).min(g.count - 1);
+        let mut scratch = self.new_scratch();
+        let mut out = self.new_sample();
+        for j in 0..nj {
+            out.q[7 + j] = g.seeds[c * nj + j];
+        }
+        let n = last + 1 - first;
+        let mut chunk = KnotChunk {
+            first,
+            q: Vec::with_capacity(n * nj),
+            v: Vec::with_capacity(n * nj),
+            a: Vec::with_capacity(n * nj),
+        };
+        for k in first..=last {
+            // Every knot passed this evaluation when the plan was built, with these inputs.
+            if let Err(e) = self.evaluate_exact(g.time(k), &mut scratch, &mut out) {
+                panic!("plan knot {k} failed on re-evaluation after passing at build: {e}");
+            }
+            chunk.q.extend(out.q.iter().skip(7));
+            chunk.v.extend(out.v.iter().skip(6));
+            chunk.a.extend(out.a.iter().skip(6));
+        }
+        chunk
+    }
+
+    /// The chunk holding knot `k` and the next one, from the sample's handle, the plan's
+    /// cache, or made again.
+    fn chunk_for(&self, k: usize, handle: &mut ChunkHandle) -> Arc<KnotChunk> {
+        let id = self.knots.id;
+        let c = k / CHUNK_KNOTS;
+        if let Some((hid, hc, chunk)) = &handle.0
+            && *hid == id
+            && *hc == c
+        {
+            return chunk.clone();
+        }
+        let chunk = match self.knot_cache.get(id, c) {
+            Some(ch) => ch,
+            None => self.knot_cache.put(id, c, Arc::new(self.make_chunk(c))),
+        };
+        handle.0 = Some((id, c, chunk.clone()));
+        chunk
     }
 
     /// Consecutive knots must lie on one smooth joint path: the trapezoid rule
@@ -791,6 +1003,7 @@ impl Plan {
             foot_acc: vec![Vec3::zeros(); n],
             base_pos: Vec3::zeros(),
             phase_index: 0,
+            knots: ChunkHandle::default(),
         }
     }
 
@@ -872,34 +1085,36 @@ impl Plan {
 
     fn joints_from_knots(&self, t: f64, out: &mut PlanSample) {
         let nj = self.model.n_joints();
-        let n = self.knot_t.len();
+        let g = &self.knots;
+        let n = g.count;
         if n == 0 {
             return;
         }
-        let k = self.knot_t.partition_point(|&x| x <= t).saturating_sub(1);
-        let copy = |k: usize, out: &mut PlanSample| {
+        let k = g.partition_point(|x| x <= t).saturating_sub(1);
+        let chunk = self.chunk_for(k.min(n - 1), &mut out.knots);
+        let at = |k: usize| (k - chunk.first) * nj;
+        let tk = g.time(k);
+        if k + 1 >= n || t == tk {
+            let i = at(k.min(n - 1));
             for j in 0..nj {
-                out.q[7 + j] = self.knot_q[k * nj + j];
-                out.v[6 + j] = self.knot_v[k * nj + j];
-                out.a[6 + j] = self.knot_a[k * nj + j];
+                out.q[7 + j] = chunk.q[i + j];
+                out.v[6 + j] = chunk.v[i + j];
+                out.a[6 + j] = chunk.a[i + j];
             }
-        };
-        if k + 1 >= n || t == self.knot_t[k] {
-            copy(k.min(n - 1), out);
             return;
         }
-        let h = self.knot_t[k + 1] - self.knot_t[k];
-        let u = (t - self.knot_t[k]) / h;
+        let h = g.time(k + 1) - tk;
+        let u = (t - tk) / h;
         let basis = quintic_hermite(u);
-        let (i0, i1) = (k * nj, (k + 1) * nj);
+        let (i0, i1) = (at(k), at(k + 1));
         for j in 0..nj {
             let w = [
-                self.knot_q[i0 + j],
-                h * self.knot_v[i0 + j],
-                h * h * self.knot_a[i0 + j],
-                h * h * self.knot_a[i1 + j],
-                h * self.knot_v[i1 + j],
-                self.knot_q[i1 + j],
+                chunk.q[i0 + j],
+                h * chunk.v[i0 + j],
+                h * h * chunk.a[i0 + j],
+                h * h * chunk.a[i1 + j],
+                h * chunk.v[i1 + j],
+                chunk.q[i1 + j],
             ];
             let dot = |r: usize| -> f64 { (0..6).map(|i| basis[r][i] * w[i]).sum() };
             out.q[7 + j] = dot(0);
@@ -1105,9 +1320,14 @@ impl Plan {
         &self.breakpoints
     }
 
+    /// Knot chunks this plan keeps now (at most [`CACHE_CHUNKS`]).
+    pub fn knot_chunks_kept(&self) -> usize {
+        self.knot_cache.0.lock().map(|g| g.0.len()).unwrap_or(0)
+    }
+
     /// Times of the joint knots.
-    pub fn knot_times(&self) -> &[f64] {
-        &self.knot_t
+    pub fn knot_times(&self) -> Vec<f64> {
+        (0..self.knots.count).map(|k| self.knots.time(k)).collect()
     }
 
     /// Radius of the sphere feet, m (a foot touches the ground `radius` below its centre along
