@@ -289,7 +289,7 @@ pub struct CellSetup<'a> {
     saturated: bool,
     joint_err: Vec<f64>,
     base: Pose,
-    compute_us: Vec<f64>,
+    compute_us: crate::quantiles::TimeHistogram,
     last_law: LawStatus,
     /// A piped law's report (its failures and its program's own compute times).
     pipe_probe: Option<crate::pipe_law::PipeProbe>,
@@ -454,7 +454,7 @@ impl<'a> CellSetup<'a> {
             saturated: false,
             joint_err: vec![0.0; nj],
             base: Pose::new(Mat3::identity(), Vec3::zeros()),
-            compute_us: Vec::with_capacity(steps / every + 1),
+            compute_us: crate::quantiles::TimeHistogram::new(),
             last_law: LawStatus::Solved,
             pipe_probe,
             plan,
@@ -513,7 +513,7 @@ impl<'a> CellSetup<'a> {
             },
             &mut self.command,
         );
-        self.compute_us.push(t0.elapsed().as_secs_f64() * 1e6);
+        self.compute_us.add(t0.elapsed().as_secs_f64() * 1e6);
         if let Some(p) = &self.pipe_probe
             && let Some(e) = p.lock().unwrap_or_else(|e| e.into_inner()).error.take()
         {
@@ -691,7 +691,7 @@ impl<'a> CellSetup<'a> {
     /// The metrics and the verdict. A run that stayed up is judged first on whether the law
     /// controlled the robot at all, then on whether it met its own constraints (README,
     /// "Statuses").
-    pub fn finish(mut self, stop: Option<Stop>) -> CellOutcome {
+    pub fn finish(self, stop: Option<Stop>) -> CellOutcome {
         // A piped law that failed (time-out, exit, malformed reply) ends its cell as a set-up
         // error would: no metrics of a run its law did not finish.
         if let Some((CellStatus::Error, message)) = stop {
@@ -722,15 +722,7 @@ impl<'a> CellSetup<'a> {
         }
         let (child_median_us, child_p99_us) =
             crate::pipe_law::child_time_stats(self.pipe_probe.as_ref());
-        let compute_us = &mut self.compute_us;
-        compute_us.sort_by(|a, b| a.total_cmp(b));
-        let pick = |p: f64| {
-            if compute_us.is_empty() {
-                f64::NAN
-            } else {
-                compute_us[((compute_us.len() - 1) as f64 * p).round() as usize]
-            }
-        };
+        let pick = |p: f64| self.compute_us.quantile(p);
         CellOutcome {
             status,
             message,

@@ -15,6 +15,7 @@ pub mod metrics;
 pub mod onset;
 pub mod pipe_law;
 pub mod planner;
+pub mod quantiles;
 pub mod plant;
 pub mod report;
 pub mod robot;

@@ -817,7 +817,7 @@ impl<'a> Reader<'a> {
 #[derive(Debug, Default)]
 pub struct PipeReport {
     /// The child's own compute time per control step (its `TORQUES` reply), µs.
-    pub child_us: Vec<f64>,
+    pub child_us: crate::quantiles::TimeHistogram,
     /// Set when the child failed; the cell ends with status `error` and this message.
     pub error: Option<String>,
 }
@@ -1033,7 +1033,7 @@ impl PipeLaw {
             .lock()
             .unwrap_or_else(|e| e.into_inner())
             .child_us
-            .push(own_us);
+            .add(own_us);
         Ok(status)
     }
 }
@@ -1091,13 +1091,8 @@ pub fn child_time_stats(probe: Option<&PipeProbe>) -> (f64, f64) {
     let Some(p) = probe else {
         return (f64::NAN, f64::NAN);
     };
-    let mut v = p.lock().unwrap_or_else(|e| e.into_inner()).child_us.clone();
-    if v.is_empty() {
-        return (f64::NAN, f64::NAN);
-    }
-    v.sort_by(|a, b| a.total_cmp(b));
-    let pick = |q: f64| v[((v.len() - 1) as f64 * q).round() as usize];
-    (pick(0.5), pick(0.99))
+    let g = p.lock().unwrap_or_else(|e| e.into_inner());
+    (g.child_us.quantile(0.5), g.child_us.quantile(0.99))
 }
 
 /// The manifest `inputs` entries of the declared piped laws: `external.<name>` → path and
