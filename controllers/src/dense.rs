@@ -154,6 +154,22 @@ pub fn cholesky_solve_at(l: &DMatrix<f64>, off: usize, n: usize, b: &mut [f64]) 
     let ld = l.nrows();
     let l = l.as_slice();
     let at = |j: usize| (off + j) * ld + off;
+    if n == 3 {
+        // One foot's block, unrolled: the same operations in the same order as the loops
+        // below (a zero multiplier subtracts an exact zero; a sum starts from the empty sum).
+        let (c0, c1, c2) = (at(0), at(1), at(2));
+        let y0 = b[0] / l[c0];
+        let y1 = (b[1] - y0 * l[c0 + 1]) / l[c1 + 1];
+        let y2 = ((b[2] - y0 * l[c0 + 2]) - y1 * l[c1 + 2]) / l[c2 + 2];
+        let empty: f64 = std::iter::empty::<f64>().sum();
+        let x2 = (y2 - empty) / l[c2 + 2];
+        let x1 = (y1 - (empty + x2 * l[c1 + 2])) / l[c1 + 1];
+        let x0 = (y0 - ((empty + x1 * l[c0 + 1]) + x2 * l[c0 + 2])) / l[c0];
+        b[0] = x0;
+        b[1] = x1;
+        b[2] = x2;
+        return;
+    }
     // L y = b by columns.
     for j in 0..n {
         let cj = &l[at(j) + j..at(j) + n];
