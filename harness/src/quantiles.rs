@@ -39,7 +39,7 @@ impl TimeHistogram {
     }
 
     fn bin(us: f64) -> usize {
-        if !(us > LOW_US) {
+        if us.is_nan() || us <= LOW_US {
             return 0;
         }
         (((us / LOW_US).ln() / RATIO.ln()) as usize).min(bins() - 1)
