@@ -219,30 +219,36 @@ fn bad_rungs_are_refused_naming_the_rung_and_nothing_is_written() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
-/// The plant's default settings are the rung the committed ladder chose (results/ladder/,
-/// made by the command in BENCHMARKS.md, "Step ladder").
-///
-/// Ignored for now, and visibly so: the committed reduced ladder chose its finest rung
-/// (0.5 ms × 4), not today's defaults (1 ms × 4); the owner sets the defaults after the full
-/// ladder on the default study's conditions and then removes this `ignore`
-/// (`cargo test --release --test ladder -- --ignored` runs it and fails today).
+/// The plant's default settings, and the default study's, are the rung the committed ladder
+/// chose (results/ladder/, the full ladder on the default study's conditions, made by the
+/// command in BENCHMARKS.md, "Step ladder").
 #[test]
-#[ignore = "the committed reduced ladder chose 0.5 ms × 4, not the defaults 1 ms × 4: the owner decides after the full ladder (BENCHMARKS.md, Step ladder)"]
 fn plant_defaults_are_the_rung_the_committed_ladder_chose() {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("results/ladder/rungs.csv");
     let text = std::fs::read_to_string(&path).unwrap();
     let chosen = chosen_in_table(&text).unwrap();
     let d = PlantSettings::default();
-    assert_eq!(
-        (chosen.dt, chosen.substeps),
-        (d.dt, d.substeps),
-        "{}: the ladder chose {}; the plant defaults are {} s × {} substeps",
-        path.display(),
-        chosen.label(),
-        d.dt,
-        d.substeps
-    );
-    if let Some(hz) = chosen.contact_hz {
-        assert_eq!(hz, d.contact_hz);
+    let study = gripsweep::scenario::Scenario::default_embedded()
+        .unwrap()
+        .plant;
+    for (what, dt, substeps, hz) in [
+        ("PlantSettings::default()", d.dt, d.substeps, d.contact_hz),
+        (
+            "the default study's [plant]",
+            study.dt,
+            study.substeps,
+            study.contact_hz,
+        ),
+    ] {
+        assert_eq!(
+            (chosen.dt, chosen.substeps),
+            (dt, substeps),
+            "{}: the ladder chose {}; {what} is {dt} s × {substeps} substeps",
+            path.display(),
+            chosen.label(),
+        );
+        if let Some(c) = chosen.contact_hz {
+            assert_eq!(c, hz, "{what}: contact stiffness");
+        }
     }
 }

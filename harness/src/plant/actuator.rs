@@ -129,8 +129,11 @@ pub struct DriveFigures {
 pub struct CurrentDrive {
     fig: DriveFigures,
     limit: f64,
-    /// Commands waiting out the transport delay, one per plant step.
+    /// Commands waiting out the transport delay, one per plant step: the whole steps n of the
+    /// delay d = (n + f) dt, and one more when it has a fraction f of a step.
     line: VecDeque<f64>,
+    /// The fraction f of a step in the delay (0 when d is a whole number of steps).
+    frac: f64,
     /// Lag filter factor per step: 1 − exp(−dt / T).
     alpha: f64,
     torque: f64,
@@ -139,7 +142,17 @@ pub struct CurrentDrive {
 
 impl CurrentDrive {
     pub fn new(fig: DriveFigures, limit: f64, dt: f64) -> Self {
-        let steps = (fig.delay / dt).round() as usize;
+        // A delay that is not a whole number of plant steps keeps its fraction (rounding it
+        // made the delay depend on the step: a 0.25 ms torque-loop delay was none at 1 ms
+        // steps and 0.5 ms at 0.5 ms steps).
+        let exact = fig.delay / dt;
+        let whole = (exact + 1e-9).floor();
+        let frac = if exact - whole > 1e-9 {
+            exact - whole
+        } else {
+            0.0
+        };
+        let steps = whole as usize + usize::from(frac > 0.0);
         let alpha = if fig.lag > 0.0 {
             1.0 - (-dt / fig.lag).exp()
         } else {
@@ -149,6 +162,7 @@ impl CurrentDrive {
             fig,
             limit,
             line: std::iter::repeat_n(0.0, steps).collect(),
+            frac,
             alpha,
             torque: 0.0,
             saturated: false,
@@ -161,7 +175,16 @@ impl Actuator for CurrentDrive {
         // The driver limits current: the command is clamped at the effort limit before the
         // torque-constant error scales it; the shaft torque is clamped at the limit again.
         self.line.push_back(command.clamp(-self.limit, self.limit));
-        let delayed = self.line.pop_front().unwrap_or(0.0);
+        let delayed = if self.frac > 0.0 {
+            // The commands are held over each step; delayed by (n + f) steps, the step
+            // sees the command of n + 1 steps ago for its first f and that of n steps ago for
+            // the rest: their step average (the impulse the delayed command delivers).
+            let older = self.line.pop_front().unwrap_or(0.0);
+            let newer = self.line.front().copied().unwrap_or(0.0);
+            self.frac * older + (1.0 - self.frac) * newer
+        } else {
+            self.line.pop_front().unwrap_or(0.0)
+        };
         let target = delayed * self.fig.gain;
         self.torque += self.alpha * (target - self.torque);
         self.saturated = command.abs() >= self.limit || self.torque.abs() >= self.limit;
@@ -226,6 +249,37 @@ mod tests {
         }
         // Final value 10 (1 + 0.1 / 10) = 10.1.
         assert!((last - 10.1).abs() < 1e-6);
+    }
+
+    /// A delay of a fraction of a step delivers the delayed command's impulse whatever the
+    /// step: the 0.25 ms inner-loop delay of a 4 kHz torque loop (with no lag, so the output
+    /// is the delayed command itself) gives at 1 ms steps 0.75 of a step's new command in its
+    /// first step, and at 0.5 ms steps 0.5; over the first millisecond both deliver
+    /// 0.75 ms × the command (exact for a held command delayed by 0.25 ms).
+    #[test]
+    fn a_fractional_delay_keeps_the_delayed_impulse_at_any_step() {
+        let mut p = params();
+        p.lag = 0.0;
+        p.torque_constant_error = 0.0;
+        for (dt, first) in [(1e-3, 7.5), (5e-4, 5.0)] {
+            let mut a = ActuatorKind::TorqueLoop.build(&p, 30.0, dt);
+            let y0 = a.drive(10.0);
+            assert!((y0 - first).abs() < 1e-12, "dt {dt}: {y0}");
+            let steps = (1e-3 / dt).round() as usize;
+            let mut impulse = y0 * dt;
+            for _ in 1..steps {
+                impulse += a.drive(10.0) * dt;
+            }
+            assert!(
+                (impulse - 10.0 * 0.75e-3).abs() < 1e-12,
+                "dt {dt}: {impulse}"
+            );
+            assert!((a.drive(10.0) - 10.0).abs() < 1e-12);
+        }
+        // A whole number of steps is the plain delay line (open loop, 3 ms at 1 ms).
+        let mut a = ActuatorKind::OpenCurrent.build(&params(), 30.0, 1e-3);
+        let y: Vec<f64> = (0..4).map(|_| a.drive(10.0)).collect();
+        assert!(y[..3].iter().all(|&v| v == 0.0) && y[3] > 0.0, "{y:?}");
     }
 
     #[test]
