@@ -39,7 +39,7 @@ impl Default for PlantSettings {
     /// Chosen by the fidelity checks and the benchmark in BENCHMARKS.md.
     fn default() -> Self {
         PlantSettings {
-            dt: 1e-3,
+            dt: 5e-4,
             substeps: 4,
             contact_hz: 500.0,
             contact_damping: 1.0,
