@@ -60,9 +60,10 @@ fn block_on_ground(ground: &dyn Terrain, angle_deg: f64, mu: f64) -> (f64, f64) 
     let downhill = -slope.uphill();
     let start = world.bodies[body].translation();
     let mut d_half = 0.0;
-    for step in 1..=1000 {
+    let n_steps = steps(1.0);
+    for step in 1..=n_steps {
         world.step();
-        if step == 500 {
+        if step == n_steps / 2 {
             let p = world.bodies[body].translation() - start;
             d_half = Vec3::new(p.x, p.y, p.z).dot(&downhill);
         }
@@ -187,6 +188,11 @@ fn hold(
     plant.set_joint_torques(&tau);
 }
 
+/// Plant steps in `seconds` at the default plant step (the checks below hold time, not steps).
+fn steps(seconds: f64) -> usize {
+    (seconds / PlantSettings::default().dt).round() as usize
+}
+
 #[test]
 fn standing_robot_contact_forces_carry_its_weight() {
     let robot = LoadedRobot::demo().unwrap();
@@ -198,11 +204,11 @@ fn standing_robot_contact_forces_carry_its_weight() {
     let mut v = v0.clone();
     let mut sum = Vec3::zeros();
     let mut count = 0;
-    for step in 0..1500 {
+    for step in 0..steps(1.5) {
         plant.state(&mut q, &mut v);
         hold(&mut plant, &q0, &q, &v, 300.0, 5.0);
         plant.step().unwrap();
-        if step >= 1000 {
+        if step >= steps(1.0) {
             sum += plant.feet().iter().map(|f| f.force).sum::<Vec3>();
             count += 1;
         }
@@ -234,13 +240,14 @@ fn robot_slide_on_slope(angle_deg: f64, mu: f64) -> (f64, f64) {
     let (mut q, mut v) = (q0.clone(), v0.clone());
     let downhill = -slope.uphill();
     let mut marks = [Vec3::zeros(); 2];
-    for step in 1..=2000 {
+    let (one, half) = (steps(1.0), steps(0.5));
+    for step in 1..=steps(2.0) {
         plant.state(&mut q, &mut v);
         hold(&mut plant, &q0, &q, &v, 1000.0, 10.0);
         plant.step().unwrap();
-        if step == 1000 || step == 1500 {
+        if step == one || step == one + half {
             plant.state(&mut q, &mut v);
-            marks[(step - 1000) / 500] = Vec3::new(q[0], q[1], q[2]);
+            marks[(step - one) / half] = Vec3::new(q[0], q[1], q[2]);
         }
     }
     plant.state(&mut q, &mut v);
@@ -426,7 +433,7 @@ fn joint_friction_at_constant_velocity_is_the_configured_value() {
         plant.set_joint_friction(&[c], &[b]);
         let (mut q, mut v) = (DVector::zeros(1), DVector::zeros(1));
         plant.set_state(&q, &v);
-        for _ in 0..4000 {
+        for _ in 0..steps(4.0) {
             let applied = act.drive(tau);
             plant.set_joint_torques(&[applied]);
             plant.step().unwrap();

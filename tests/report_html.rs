@@ -106,8 +106,9 @@ fn replay_feet_equal_trace_csv() {
         .collect();
     let rows: Vec<csv::StringRecord> = rdr.records().map(|r| r.expect("row")).collect();
     assert_eq!(frames.len(), rows.len(), "one frame per CSV row");
-    // 8 s of the quick scenario at 1 ms steps, a row every 25 steps.
-    assert_eq!(rows.len(), 320);
+    // 8 s of the quick scenario at the default plant step, a row every 25 steps.
+    let dt = gripsweep::plant::PlantSettings::default().dt;
+    assert_eq!(rows.len(), (8.0 / (25.0 * dt)).round() as usize);
     let col = |name: &str| {
         head.iter()
             .position(|h| h == name)
