@@ -246,6 +246,25 @@ struct KnotChunk {
     a: Vec<f64>,
 }
 
+impl KnotChunk {
+    /// An empty chunk starting at knot `first`, room for `knots` knots of `nj` joints.
+    fn new(first: usize, knots: usize, nj: usize) -> Self {
+        KnotChunk {
+            first,
+            q: Vec::with_capacity(knots * nj),
+            v: Vec::with_capacity(knots * nj),
+            a: Vec::with_capacity(knots * nj),
+        }
+    }
+
+    /// Append the joints of an exact solution as the next knot.
+    fn push(&mut self, out: &PlanSample) {
+        self.q.extend(out.q.iter().skip(7));
+        self.v.extend(out.v.iter().skip(6));
+        self.a.extend(out.a.iter().skip(6));
+    }
+}
+
 /// A sample's reference to the chunk it read last: (knot set, chunk index, chunk).
 #[derive(Clone, Default)]
 struct ChunkHandle(Option<(u64, usize, Arc<KnotChunk>)>);
@@ -792,12 +811,7 @@ impl Plan {
         let mut out = self.new_sample();
         self.seed_nominal(&mut out);
         let (mut prev_q, mut prev_v) = (vec![0.0; nj], vec![0.0; nj]);
-        let mut chunk = KnotChunk {
-            first: 0,
-            q: Vec::with_capacity((CHUNK_KNOTS + 1) * nj),
-            v: Vec::with_capacity((CHUNK_KNOTS + 1) * nj),
-            a: Vec::with_capacity((CHUNK_KNOTS + 1) * nj),
-        };
+        let mut chunk = KnotChunk::new(0, CHUNK_KNOTS + 1, nj);
         for k in 0..grid.count {
             if k % CHUNK_KNOTS == 0 {
                 grid.seeds.extend(out.q.iter().skip(7));
@@ -811,17 +825,12 @@ impl Plan {
                 *p = out.q[7 + j];
                 prev_v[j] = out.v[6 + j];
             }
-            chunk.q.extend(out.q.iter().skip(7));
-            chunk.v.extend(out.v.iter().skip(6));
-            chunk.a.extend(out.a.iter().skip(6));
+            chunk.push(&out);
             let c = chunk.first / CHUNK_KNOTS;
             if k == (c + 1) * CHUNK_KNOTS || k + 1 == grid.count {
-                let next = KnotChunk {
-                    first: k,
-                    q: out.q.iter().skip(7).copied().collect(),
-                    v: out.v.iter().skip(6).copied().collect(),
-                    a: out.a.iter().skip(6).copied().collect(),
-                };
+                // This knot also opens the next chunk.
+                let mut next = KnotChunk::new(k, CHUNK_KNOTS + 1, nj);
+                next.push(&out);
                 let done = std::mem::replace(&mut chunk, next);
                 self.knot_cache.put(grid.id, c, Arc::new(done));
             }
@@ -842,21 +851,13 @@ impl Plan {
         for j in 0..nj {
             out.q[7 + j] = g.seeds[c * nj + j];
         }
-        let n = last + 1 - first;
-        let mut chunk = KnotChunk {
-            first,
-            q: Vec::with_capacity(n * nj),
-            v: Vec::with_capacity(n * nj),
-            a: Vec::with_capacity(n * nj),
-        };
+        let mut chunk = KnotChunk::new(first, last + 1 - first, nj);
         for k in first..=last {
             // Every knot passed this evaluation when the plan was built, with these inputs.
             if let Err(e) = self.evaluate_exact(g.time(k), &mut scratch, &mut out) {
                 panic!("plan knot {k} failed on re-evaluation after passing at build: {e}");
             }
-            chunk.q.extend(out.q.iter().skip(7));
-            chunk.v.extend(out.v.iter().skip(6));
-            chunk.a.extend(out.a.iter().skip(6));
+            chunk.push(&out);
         }
         chunk
     }
